@@ -1,0 +1,3 @@
+from seqsolve.cli import app
+
+app()

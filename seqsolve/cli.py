@@ -1,0 +1,146 @@
+"""The command line: thin typer commands, each one call of the Python API.
+
+Precedence of settings: command line > spec file > built-in default.
+Exit codes: 0 success; 1 rules violated, impossible, or not decided in time; 2 unusable input; 3 internal error.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from seqsolve.errors import SeqsolveError
+
+app = typer.Typer(
+    name="seqsolve",
+    help="Trial orderings that obey your rules by construction, and audits of orderings you already have.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+SpecArg = Annotated[Path, typer.Argument(help="The study's spec file (TOML).", show_default=False)]
+TimeLimit = Annotated[float, typer.Option("--time-limit", help="Seconds of solving allowed per participant.")]
+
+
+def _fail(exc: SeqsolveError) -> None:
+    typer.echo(f"error: {exc}", err=True)
+    raise typer.Exit(exc.exit_code)
+
+
+def _progress(started: float):
+    def show(done: int, total: int, label: str) -> None:
+        if done < total:
+            typer.echo(f"  participant {label} ({done + 1}/{total}) ... {time.perf_counter() - started:.1f} s", err=True)
+
+    return show
+
+
+@app.command()
+def generate(
+    spec: SpecArg,
+    out: Annotated[Path, typer.Option("-o", "--out", help="Output folder (must be new or empty).")],
+    seed: Annotated[int | None, typer.Option(help="Master seed; overrides study.seed.")] = None,
+    force: Annotated[bool, typer.Option(help="Replace an existing output folder.")] = False,
+    time_limit: TimeLimit = 120.0,
+    method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
+) -> None:
+    """Generate valid orderings and schedules for every participant.
+
+    Example: seqsolve generate examples/reward_cue.toml -o designs/
+    """
+    from seqsolve.generate import generate as run_generate
+    from seqsolve.solve import SolveOptions
+    from seqsolve.spec import load_study
+
+    if method not in ("auto", "counts", "positions"):
+        typer.echo("error: --method must be auto, counts or positions", err=True)
+        raise typer.Exit(2)
+    started = time.perf_counter()
+    try:
+        study = load_study(spec, seed=seed)
+        typer.echo(f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), {len(study.rules)} rule(s)", err=True)
+        designs = run_generate(
+            study, out, force=force, options=SolveOptions(time_limit=time_limit, method=method), progress=_progress(started)
+        )
+    except SeqsolveError as exc:
+        _fail(exc)
+    except KeyboardInterrupt:
+        typer.echo("interrupted; nothing was written", err=True)
+        raise typer.Exit(130) from None
+    typer.echo(f"wrote {len(designs)} participant design(s) to {out}/ in {time.perf_counter() - started:.1f} s "
+               f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks")
+    typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv")
+
+
+@app.command()
+def audit(
+    spec: SpecArg,
+    files: Annotated[list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)],
+    as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
+) -> None:
+    """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
+
+    Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
+    """
+    from seqsolve.audit import audit as run_audit
+    from seqsolve.spec import load_study
+
+    try:
+        study = load_study(spec)
+        report = run_audit(study, files)
+    except SeqsolveError as exc:
+        _fail(exc)
+    if as_json:
+        typer.echo(json.dumps({"valid": report.valid, "participants": report.participants,
+                               "violations": [v.__dict__ for v in report.violations]}, indent=2))
+    else:
+        typer.echo(f"checked {len(report.participants)} participant(s) against {len(report.rules)} rule(s)")
+        for v in report.violations:
+            typer.echo(f"  {v.describe()}")
+        typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
+    raise typer.Exit(0 if report.valid else 1)
+
+
+@app.command()
+def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
+    """Say whether the rules can all hold; if not, name a smallest set that conflicts.
+
+    Example: seqsolve check examples/reward_cue.toml
+    """
+    from seqsolve.solve import SolveOptions, check_study
+    from seqsolve.spec import load_study
+
+    try:
+        study = load_study(spec)
+        result = check_study(study, SolveOptions(time_limit=time_limit, explain_time_limit=time_limit))
+    except SeqsolveError as exc:
+        _fail(exc)
+    if result.feasible:
+        typer.echo(f"the {len(study.rules)} rule(s) can all hold ({result.method} model, {result.seconds:.2f} s):")
+        for r, src in zip(study.rules, study.rule_sources):
+            typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+        raise typer.Exit(0)
+    typer.echo(result.explanation.describe())
+    raise typer.Exit(1)
+
+
+@app.command()
+def schema() -> None:
+    """Print the JSON Schema of the spec file (for editor completion and validation)."""
+    from seqsolve.spec import spec_json_schema
+
+    typer.echo(json.dumps(spec_json_schema(), indent=2))
+
+
+def main() -> None:  # pragma: no cover - entry point
+    app()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

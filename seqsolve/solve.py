@@ -1,0 +1,315 @@
+"""Drivers joining rules and CP-SAT: valid orderings per participant, and explanations of impossibility.
+
+Two exact encodings are available (see DEVELOPERS.md): the transition-count model of flow.py,
+used when every rule can be said in it, and the per-position model of model.py otherwise.
+Every ordering leaves this module only after every rule's independent check has passed.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+from ortools.sat.python import cp_model
+
+from seqsolve.errors import InfeasibleError, InternalError, SolverTimeoutError
+from seqsolve.flow import Disconnected, FlowModel, raise_if_disconnected
+from seqsolve.model import OrderingModel
+from seqsolve.rules import Rule
+from seqsolve.rules.participants_differ import ParticipantsDiffer
+from seqsolve.spec import Study
+
+#: how often the flow path resamples a participant whose runs repeat an earlier participant's
+RESAMPLE_ATTEMPTS = 20
+
+
+@dataclass
+class SolveOptions:
+    """Limits of one solve. time_limit is wall-clock seconds per participant (a safety net);
+    work_limit is CP-SAT's deterministic time, so results do not depend on machine speed."""
+
+    time_limit: float = 120.0
+    work_limit: float = 30.0
+    method: str = "auto"  # "auto", "counts" (transition-count model) or "positions"
+    explain_time_limit: float = 60.0
+
+
+@dataclass
+class ParticipantOrdering:
+    label: str
+    seed: int
+    runs: list[np.ndarray]
+    method: str
+    seconds: float
+
+
+@dataclass
+class Explanation:
+    """Which rules cannot hold together, in the words of the spec."""
+
+    proven: bool  # False: the solver ran out of time, nothing is proven
+    minimal: bool  # True: dropping any one of the listed rules makes the rest possible
+    rules: list[tuple[int, str, str]] = field(default_factory=list)  # (index, source, sentence)
+    note: str = ""
+
+    def describe(self) -> str:
+        if not self.proven:
+            return f"could not decide whether the rules can all hold: {self.note}"
+        if not self.rules:
+            return "the conditions' trial counts alone cannot be arranged"
+        head = (
+            "these rules cannot all hold together (dropping any one of them makes the rest possible):"
+            if self.minimal
+            else f"these rules cannot all hold together (smallest set found; {self.note}):"
+        )
+        return "\n".join([head] + [f"  - {src}: {sentence}" for _, src, sentence in self.rules])
+
+
+def derive_seed(master: int, index: int) -> int:
+    """A participant's seed from the master seed and its position in the list (fits CP-SAT's int32)."""
+    return int(np.random.SeedSequence([master, index]).generate_state(1)[0] % (2**31 - 1))
+
+
+def choose_method(study: Study, options: SolveOptions) -> str:
+    if options.method != "auto":
+        return options.method
+    probe = FlowModel(study.facts)
+    ok = all(rule.encode_flow(probe, probe.new_guard("probe")) for rule in study.rules)
+    return "counts" if ok else "positions"
+
+
+def check_runs(study_or_facts, rules, runs: list[np.ndarray]) -> list:
+    facts = study_or_facts.facts if isinstance(study_or_facts, Study) else study_or_facts
+    return [v for rule in rules for v in rule.check(facts, runs)]
+
+
+def generate_orderings(
+    study: Study,
+    options: SolveOptions | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+) -> list[ParticipantOrdering]:
+    """Valid orderings for every participant, each from its own derived seed.
+
+    Raises
+    ------
+    InfeasibleError
+        With an explanation naming the rules that conflict.
+    SolverTimeoutError
+        When the time limit ran out before an ordering was found or the rules were shown impossible.
+    """
+    options = options or SolveOptions()
+    method = choose_method(study, options)
+    solver_for = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
+    differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
+    done: list[ParticipantOrdering] = []
+    for i, label in enumerate(study.participants):
+        if progress:
+            progress(i, len(study.participants), label)
+        seed = derive_seed(study.spec.study.seed, i)
+        t0 = time.perf_counter()
+        runs = solver_for.solve(seed, [d.runs for d in done], differ)
+        problems = check_runs(study, study.rules, runs) + [
+            c for rule in differ for c in rule.clashes(runs, [d.runs for d in done])
+        ]
+        if problems:  # the encodings promise this never happens
+            raise InternalError(f"participant {label}: produced ordering fails a check: {problems[:3]}")
+        done.append(ParticipantOrdering(label, seed, runs, method, time.perf_counter() - t0))
+    if progress:
+        progress(len(study.participants), len(study.participants), "")
+    return done
+
+
+def _params(seed: int, options: SolveOptions, time_limit: float | None = None) -> cp_model.CpSolver:
+    solver = cp_model.CpSolver()
+    solver.parameters.num_workers = 1  # one worker: the result depends on the seed alone
+    solver.parameters.random_seed = seed
+    solver.parameters.max_time_in_seconds = time_limit or options.time_limit
+    solver.parameters.max_deterministic_time = options.work_limit
+    return solver
+
+
+class _CountsPath:
+    """Transition-count model + trail construction (exact for the rules it accepts)."""
+
+    def __init__(self, study: Study, options: SolveOptions):
+        self.study, self.options = study, options
+        self.fm = FlowModel(study.facts)
+        self.guards = [self.fm.new_guard(f"{i}") for i in range(len(study.rules))]
+        for rule, g in zip(study.rules, self.guards):
+            if not rule.encode_flow(self.fm, g):
+                raise ValueError(f"rule cannot be encoded on pair counts: {rule.sentence(study.facts)}")
+
+    def solve(self, seed: int, earlier: list[list[np.ndarray]], differ: list[ParticipantsDiffer]) -> list[np.ndarray]:
+        rng = np.random.default_rng(seed)
+        for attempt in range(RESAMPLE_ATTEMPTS):
+            runs = self._sample(seed + attempt, rng)
+            if not any(rule.clashes(runs, earlier) for rule in differ):
+                return runs
+        # sampling keeps meeting earlier participants: the exact per-position model decides
+        return _PositionsPath(self.study, self.options).solve(seed, earlier, differ)
+
+    def _sample(self, seed: int, rng: np.random.Generator) -> list[np.ndarray]:
+        fm = self.fm
+        fm.cp.clear_objective()
+        # a random linear objective on the pair counts and run ends: different participants,
+        # different count matrices within what the rules allow
+        terms = []
+        for r in range(self.study.facts.n_runs):
+            w = rng.integers(-5, 6, size=fm.m[r].shape)
+            terms += [int(w[a, b]) * fm.m[r][a, b] for a, b in np.ndindex(*w.shape)]
+            terms += [int(v) * lit for v, lit in zip(rng.integers(-5, 6, size=len(fm.start[r])), fm.start[r])]
+        fm.cp.minimize(sum(terms))
+        while True:
+            status, solver = _solve_with(fm.cp, self.guards, _params(seed, self.options))
+            if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+                _raise_for(status, self.study, self.options, "counts")
+            try:
+                return [fm.build_run(r, *fm.values(solver, r), rng) for r in range(self.study.facts.n_runs)]
+            except Disconnected as cut:
+                fm.add_connectivity_cut(cut.run, cut.component)
+
+
+class _PositionsPath:
+    """Per-position model with a randomised decision order per participant."""
+
+    def __init__(self, study: Study, options: SolveOptions):
+        self.study, self.options = study, options
+        self.m = OrderingModel(study.facts)
+        self.guards = [self.m.new_guard(f"{i}") for i in range(len(study.rules))]
+        for rule, g in zip(study.rules, self.guards):
+            rule.encode(self.m, g)
+        self.n_earlier = 0
+
+    def solve(self, seed: int, earlier: list[list[np.ndarray]], differ: list[ParticipantsDiffer]) -> list[np.ndarray]:
+        m = self.m
+        for rule in differ:
+            # earlier participants not yet in the model are added once; the constraints stay valid
+            g = self.guards[self.study.rules.index(rule)]
+            rule.encode_against(m, g, earlier[self.n_earlier :])
+        self.n_earlier = len(earlier)
+        rng = np.random.default_rng(seed)
+        m.cp.proto.search_strategy.clear()
+        order = []
+        for xs in m.x:
+            for p in range(xs.shape[0]):
+                order += [xs[p, c] for c in rng.permutation(xs.shape[1])]
+        # fill positions in order, trying conditions in a random order at each one
+        m.cp.add_decision_strategy(order, cp_model.CHOOSE_FIRST, cp_model.SELECT_MAX_VALUE)
+        solver = _params(seed, self.options)
+        solver.parameters.search_branching = cp_model.FIXED_SEARCH
+        status, solver = _solve_with(m.cp, self.guards, solver)
+        if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+            _raise_for(status, self.study, self.options, "positions")
+        return m.decode(solver)
+
+
+def _solve_with(cp: cp_model.CpModel, assumptions: list, solver: cp_model.CpSolver):
+    cp.clear_assumptions()
+    cp.add_assumptions(assumptions)
+    status = solver.solve(cp)
+    return status, solver
+
+
+def _raise_for(status, study: Study, options: SolveOptions, method: str):
+    if status == cp_model.INFEASIBLE:
+        raise InfeasibleError(explain(study, options))
+    if status == cp_model.UNKNOWN:
+        raise SolverTimeoutError(
+            f"no ordering found within {options.time_limit:g} s (or {options.work_limit:g} units of solver work) "
+            f"with the {method} model, and no proof that none exists. Try a longer --time-limit, "
+            "or loosen a rule (seqsolve check names the tightest ones)."
+        )
+    raise InternalError(f"CP-SAT returned status {status} ({cp_model.CpSolver().status_name(status)})")
+
+
+# ----------------------------------------------------------------------------------------------
+# explanations
+
+
+def explain(study: Study, options: SolveOptions | None = None) -> Explanation:
+    """Name a smallest set of rules that cannot hold together (an assumption core, then shrunk).
+
+    Returns an Explanation with proven=False when time ran out before any proof.
+    """
+    options = options or SolveOptions()
+    method = choose_method(study, options)
+    path = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
+    cp = path.fm.cp if method == "counts" else path.m.cp
+    cp.clear_objective()
+    cp.proto.search_strategy.clear()
+    guards = path.guards
+    deadline = time.perf_counter() + options.explain_time_limit
+
+    def infeasible(active: list[int]) -> bool | None:
+        left = deadline - time.perf_counter()
+        if left <= 0:
+            return None
+        solver = _params(0, options, time_limit=left)
+        status, solver = _solve_with(cp, [guards[i] for i in active], solver)
+        if status == cp_model.INFEASIBLE:
+            core = set(solver.sufficient_assumptions_for_infeasibility())
+            infeasible.core = [i for i in active if guards[i].index in core]
+            return True
+        if status in (cp_model.FEASIBLE, cp_model.OPTIMAL):
+            if method == "counts" and not _counts_buildable(path, solver):
+                return infeasible(active)  # a cut was added: ask again
+            return False
+        return None
+
+    everything = list(range(len(study.rules)))
+    verdict = infeasible(everything)
+    if verdict is None:
+        return Explanation(False, False, note=f"no answer within {options.explain_time_limit:g} s")
+    if verdict is False:
+        raise InternalError("explain() was called on rules that can all hold")
+    core = infeasible.core or everything
+    minimal = True
+    for i in list(core):
+        trial = [j for j in core if j != i]
+        answer = infeasible(trial) if trial else False
+        if answer is True:
+            core = [j for j in infeasible.core if j in trial] or trial
+        elif answer is None:
+            minimal = False
+    rules = [(i, study.rule_sources[i], study.rules[i].sentence(study.facts)) for i in sorted(core)]
+    note = "" if minimal else "time ran out before every rule in it was shown to be needed"
+    return Explanation(True, minimal, rules, note)
+
+
+def _counts_buildable(path: _CountsPath, solver) -> bool:
+    fm = path.fm
+    for r in range(fm.facts.n_runs):
+        mm, s, e = fm.values(solver, r)
+        off = mm.copy()
+        np.fill_diagonal(off, 0)
+        try:
+            raise_if_disconnected(r, off, [c for c in range(fm.facts.n_conditions) if fm.facts.counts[r, c] > 0])
+        except Disconnected as cut:
+            fm.add_connectivity_cut(cut.run, cut.component)
+            return False
+    return True
+
+
+@dataclass
+class CheckResult:
+    feasible: bool
+    method: str
+    explanation: Explanation | None
+    seconds: float
+
+
+def check_study(study: Study, options: SolveOptions | None = None) -> CheckResult:
+    """Can the rules all hold? Finds one ordering (for the first participant) or explains why not."""
+    options = options or SolveOptions()
+    t0 = time.perf_counter()
+    single = Study(**{**study.__dict__, "participants": study.participants[:1]})
+    try:
+        generate_orderings(single, options)
+    except InfeasibleError as exc:
+        return CheckResult(False, choose_method(study, options), exc.explanation, time.perf_counter() - t0)
+    return CheckResult(True, choose_method(study, options), None, time.perf_counter() - t0)
+
+
+__all__ = ["Rule", "SolveOptions", "check_study", "explain", "generate_orderings"]

@@ -1,0 +1,467 @@
+"""The spec file: pydantic models of every section, TOML loading, and errors that name file and field.
+
+Validation happens once, here; the rest of seqsolve trusts a loaded Study.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import math
+import tomllib
+import typing
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Annotated, Literal, Union
+
+import numpy as np
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+from seqsolve.errors import Problem, SpecError
+from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
+
+NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]*$"
+LABEL_PATTERN = r"^[A-Za-z0-9]+$"  # BIDS labels are alphanumeric
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class StudySection(Strict):
+    """[study]: who and how much."""
+
+    name: str = Field(min_length=1, description="A human-readable title.")
+    task: str = Field(pattern=LABEL_PATTERN, description="BIDS task label (letters and digits), used in file names.")
+    participants: int | list[Annotated[str, Field(pattern=LABEL_PATTERN)]] = Field(
+        description="How many participants (labelled 01, 02, ...) or a list of BIDS labels."
+    )
+    runs: int = Field(default=1, ge=1, le=100, description="Runs per participant.")
+    trials_per_run: int | None = Field(default=None, ge=1, description="Needed when conditions give a 'share'.")
+    seed: int = Field(default=0, ge=0, description="Master seed; each participant's seed derives from it.")
+
+    @field_validator("participants")
+    @classmethod
+    def _some(cls, v):
+        if isinstance(v, int) and not 1 <= v <= 10000:
+            raise ValueError("give between 1 and 10000 participants")
+        if isinstance(v, list) and (not v or len(set(v)) != len(v)):
+            raise ValueError("participant labels must be a non-empty list without repeats")
+        return v
+
+
+class Condition(Strict):
+    """[[conditions]]: one trial type."""
+
+    name: str = Field(pattern=NAME_PATTERN, description="Letters, digits and '_', starting with a letter.")
+    trials: int | None = Field(default=None, ge=0, description="Trials of this condition in each run.")
+    share: float | None = Field(default=None, gt=0, le=1, description="Or: fraction of study.trials_per_run.")
+    duration: float | None = Field(default=None, gt=0, description="Trial duration in seconds (default: the timing's).")
+    baseline: bool = Field(default=False, description="Mark the fixation / null condition.")
+    levels: dict[Annotated[str, Field(pattern=NAME_PATTERN)], Annotated[str, Field(pattern=NAME_PATTERN)]] = Field(
+        default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}."
+    )
+
+    @model_validator(mode="after")
+    def _count_given(self):
+        if (self.trials is None) == (self.share is None):
+            raise ValueError("give exactly one of 'trials' (per run) or 'share' (of study.trials_per_run)")
+        return self
+
+
+class FixedGap(Strict):
+    distribution: Literal["fixed"]
+    value: float = Field(ge=0, description="Seconds.")
+
+
+class UniformGap(Strict):
+    distribution: Literal["uniform"]
+    min: float = Field(ge=0)
+    max: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.max <= self.min:
+            raise ValueError("'max' must be greater than 'min'")
+        return self
+
+
+class ExponentialGap(Strict):
+    distribution: Literal["exponential"]
+    mean: float = Field(gt=0, description="Mean of the exponential before truncation, in seconds.")
+    min: float = Field(default=0.0, ge=0)
+    max: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _order(self):
+        if self.max <= self.min:
+            raise ValueError("'max' must be greater than 'min'")
+        return self
+
+
+class ChoiceGap(Strict):
+    distribution: Literal["choice"]
+    values: list[Annotated[float, Field(ge=0)]] = Field(min_length=1)
+    weights: list[Annotated[float, Field(gt=0)]] | None = None
+
+    @model_validator(mode="after")
+    def _same_length(self):
+        if self.weights is not None and len(self.weights) != len(self.values):
+            raise ValueError("'weights' needs one entry per value")
+        return self
+
+
+GapModel = Annotated[Union[FixedGap, UniformGap, ExponentialGap, ChoiceGap], Field(discriminator="distribution")]
+
+
+class Timing(Strict):
+    """[timing]: TR and the spacing of trials, in seconds."""
+
+    tr: float = Field(gt=0, description="Repetition time in seconds.")
+    soa: float | None = Field(default=None, gt=0, description="Fixed onset-to-onset time.")
+    trial_duration: float | None = Field(default=None, gt=0, description="Default trial duration.")
+    iti: GapModel | None = Field(default=None, description="Gap from one trial's end to the next onset.")
+    grid: float = Field(default=0.1, gt=0, description="Onsets and gaps are multiples of this (seconds).")
+    lead_in: float = Field(default=0.0, ge=0, description="Baseline before the first trial.")
+    lead_out: float = Field(default=0.0, ge=0, description="Baseline after the last trial ends.")
+    volumes: int | None = Field(default=None, ge=1, description="Fixed run length in volumes (optional).")
+
+    @model_validator(mode="after")
+    def _one_spacing(self):
+        if (self.soa is None) == (self.iti is None):
+            raise ValueError("give exactly one of 'soa' (fixed onset-to-onset) or 'iti' (gap after each trial)")
+        if self.iti is not None and self.trial_duration is None:
+            raise ValueError("with 'iti', give 'trial_duration' (conditions may override it with 'duration')")
+        return self
+
+
+class RuleSet(Strict):
+    """A file of ready-made rules in rules/."""
+
+    description: str = ""
+    rules: list[AnyRule] = Field(default_factory=list)
+
+
+class Spec(Strict):
+    """The whole spec file."""
+
+    study: StudySection
+    conditions: list[Condition] = Field(min_length=2)
+    timing: Timing
+    include: list[str] = Field(default_factory=list, description="Rule sets from rules/ (name or .toml path).")
+    rules: list[AnyRule] = Field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class Study:
+    """A loaded, validated spec with names resolved: what every other part of seqsolve takes."""
+
+    spec: Spec
+    source: str
+    rules: tuple[Rule, ...]
+    rule_sources: tuple[str, ...]
+    facts: StudyFacts
+    participants: tuple[str, ...]
+    spec_hash: str
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.facts.names
+
+
+# ----------------------------------------------------------------------------------------------
+# loading
+
+
+def bundled_rule_dirs() -> list[Path]:
+    here = Path(__file__).resolve().parent
+    return [here.parent / "rules", here / "rule_sets"]
+
+
+def load_study(path: str | Path, *, seed: int | None = None) -> Study:
+    """Read, validate and resolve a spec file.
+
+    Parameters
+    ----------
+    path : the TOML spec.
+    seed : overrides study.seed when given.
+
+    Raises
+    ------
+    SpecError
+        Listing every problem, each with its field path and what to do.
+    """
+    path = Path(path)
+    data = _read_toml(path)
+    spec = _validate(Spec, data, str(path))
+    rules, sources = _gather_rules(spec, path)
+    problems = _check_references(spec, rules, sources)
+    if problems:
+        raise SpecError(str(path), problems)
+    if seed is not None:
+        spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
+    facts = _facts(spec, str(path))
+    canonical = json.dumps(
+        {"spec": spec.model_dump(mode="json", exclude={"rules", "include"}), "rules": [r.model_dump(mode="json") for r in rules]},
+        sort_keys=True,
+    )
+    return Study(
+        spec=spec,
+        source=str(path),
+        rules=tuple(rules),
+        rule_sources=tuple(sources),
+        facts=facts,
+        participants=participant_labels(spec.study.participants),
+        spec_hash="sha256:" + hashlib.sha256(canonical.encode()).hexdigest(),
+    )
+
+
+def participant_labels(participants: int | list[str]) -> tuple[str, ...]:
+    if isinstance(participants, list):
+        return tuple(participants)
+    width = max(2, len(str(participants)))
+    return tuple(str(i).zfill(width) for i in range(1, participants + 1))
+
+
+def _read_toml(path: Path) -> dict:
+    if not path.exists():
+        raise SpecError(str(path), [Problem("", "file not found; give the path of a .toml spec (see examples/)")])
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except UnicodeDecodeError:
+        raise SpecError(str(path), [Problem("", "not a text file in UTF-8; a spec is a TOML text file")]) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(str(path), [Problem("", f"TOML syntax error: {exc}. Check quotes, '=' and [section] headers.")]) from None
+
+
+def _validate(model: type[BaseModel], data: dict, source: str):
+    try:
+        return model.model_validate(data)
+    except ValidationError as exc:
+        raise SpecError(source, [_problem(model, data, e) for e in exc.errors()]) from None
+
+
+def _gather_rules(spec: Spec, path: Path) -> tuple[list[Rule], list[str]]:
+    rules: list[Rule] = []
+    sources: list[str] = []
+    for i, name in enumerate(spec.include, start=1):
+        file = _find_rule_set(name, path)
+        if file is None:
+            known = sorted({p.stem for d in bundled_rule_dirs() if d.is_dir() for p in d.glob("*.toml")})
+            raise SpecError(
+                str(path),
+                [Problem(f"include[{i}]", f"no rule set '{name}'; give a .toml path or one of: {', '.join(known)}")],
+            )
+        ruleset = _validate(RuleSet, _read_toml(file), str(file))
+        rules.extend(ruleset.rules)
+        sources.extend(f"{file.name} rules[{j}]" for j in range(1, len(ruleset.rules) + 1))
+    rules.extend(spec.rules)
+    sources.extend(f"rules[{j}]" for j in range(1, len(spec.rules) + 1))
+    return rules, sources
+
+
+def _find_rule_set(name: str, spec_path: Path) -> Path | None:
+    if name.endswith(".toml"):
+        p = (spec_path.parent / name).resolve()
+        return p if p.is_file() else None
+    for d in bundled_rule_dirs():
+        p = d / f"{name}.toml"
+        if p.is_file():
+            return p
+    return None
+
+
+def _check_references(spec: Spec, rules: list[Rule], sources: list[str]) -> list[Problem]:
+    """Names in rules must be conditions or factor levels; counts and timing must add up."""
+    problems = []
+    names = [c.name for c in spec.conditions]
+    levels = _level_map(spec)
+    seen = set()
+    for i, c in enumerate(spec.conditions, start=1):
+        if c.name in seen:
+            problems.append(Problem(f"conditions[{i}].name", f"'{c.name}' is declared twice; names must differ"))
+        seen.add(c.name)
+    if sum(c.baseline for c in spec.conditions) > 1:
+        problems.append(Problem("conditions", "mark at most one condition with baseline = true"))
+    if any(c.share is not None for c in spec.conditions) and spec.study.trials_per_run is None:
+        problems.append(Problem("study.trials_per_run", "conditions give a 'share', so say how many trials a run has"))
+    for rule, where in zip(rules, sources):
+        for item in rule.condition_names():
+            if "=" in item:
+                factor, level = (s.strip() for s in item.split("=", 1))
+                if factor not in levels:
+                    problems.append(
+                        Problem(where, f"no factor '{factor}'{_suggest(factor, levels)}; factors come from conditions' 'levels'")
+                    )
+                elif level not in levels[factor]:
+                    problems.append(
+                        Problem(where, f"factor '{factor}' has no level '{level}'; its levels: {', '.join(levels[factor])}")
+                    )
+            elif item not in names:
+                problems.append(
+                    Problem(where, f"unknown condition '{item}'{_suggest(item, names)}; conditions: {', '.join(names)}")
+                )
+    if not problems and all(c.share is None for c in spec.conditions):
+        if sum(c.trials for c in spec.conditions) == 0:
+            problems.append(Problem("conditions", "every condition has 0 trials; give some trials"))
+    return problems
+
+
+def _level_map(spec: Spec) -> dict[str, dict[str, list[str]]]:
+    out: dict[str, dict[str, list[str]]] = {}
+    for c in spec.conditions:
+        for factor, level in c.levels.items():
+            out.setdefault(factor, {}).setdefault(level, []).append(c.name)
+    return out
+
+
+def _facts(spec: Spec, source: str) -> StudyFacts:
+    names = tuple(c.name for c in spec.conditions)
+    per_run = _trial_counts(spec, source)
+    counts = np.tile(np.asarray(per_run, dtype=np.int64), (spec.study.runs, 1))
+    baseline = next((i for i, c in enumerate(spec.conditions) if c.baseline), None)
+    levels = {
+        f: {lev: tuple(names.index(n) for n in members) for lev, members in lv.items()}
+        for f, lv in _level_map(spec).items()
+    }
+    return StudyFacts(names=names, counts=counts, baseline=baseline, levels=levels)
+
+
+def _trial_counts(spec: Spec, source: str) -> list[int]:
+    """Trials per run of each condition; shares are rounded by largest remainder to the run length."""
+    if all(c.share is None for c in spec.conditions):
+        return [c.trials for c in spec.conditions]
+    total = spec.study.trials_per_run
+    fixed = sum(c.trials for c in spec.conditions if c.trials is not None)
+    shares = {i: c.share for i, c in enumerate(spec.conditions) if c.share is not None}
+    share_sum = sum(shares.values())
+    left = total - fixed
+    if left < 0 or not math.isclose(share_sum, 1.0, abs_tol=1e-6) and fixed == 0:
+        raise SpecError(
+            source,
+            [Problem("conditions", f"shares add up to {share_sum:g}; they must add up to 1 (or use 'trials')")],
+        )
+    raw = {i: s / share_sum * left for i, s in shares.items()}
+    counts = {i: math.floor(v) for i, v in raw.items()}
+    order = sorted(raw, key=lambda i: (-(raw[i] - counts[i]), i))
+    for i in order[: left - sum(counts.values())]:
+        counts[i] += 1
+    return [c.trials if c.trials is not None else counts[i] for i, c in enumerate(spec.conditions)]
+
+
+# ----------------------------------------------------------------------------------------------
+# turning pydantic's errors into ones that teach the format
+
+
+def _problem(model: type[BaseModel], data: dict, err: dict) -> Problem:
+    loc = list(err["loc"])
+    kind = err["type"]
+    where = _path(loc)
+    if kind == "extra_forbidden":
+        parent = _model_at(model, data, loc[:-1])
+        known = sorted(parent.model_fields) if parent else []
+        hint = ""
+        if len(loc) > 1 and loc[-1] in Spec.model_fields:
+            hint = f" ('{loc[-1]}' is a top-level key: in TOML it must come before the first [section] header)"
+        return Problem(where, f"unknown key '{loc[-1]}'{_suggest(str(loc[-1]), known)}; allowed keys: {', '.join(known)}{hint}")
+    if kind in ("union_tag_invalid", "union_tag_not_found"):
+        tag = err.get("ctx", {}).get("discriminator", "'kind'").strip("'")
+        if tag == "kind":
+            given = err.get("ctx", {}).get("tag")
+            kinds = sorted(RULE_KINDS)
+            head = f"unknown rule kind '{given}'{_suggest(str(given), kinds)}" if given else "every rule needs a 'kind'"
+            return Problem(where, f"{head}; kinds: {', '.join(kinds)} (catalogue: rules/README.md)")
+        return Problem(where, f"{err['msg']}; 'distribution' is one of fixed, uniform, exponential, choice")
+    if kind == "missing":
+        parent = _model_at(model, data, loc[:-1])
+        hint = f" (e.g. {parent.example})" if parent is not None and getattr(parent, "example", "") else ""
+        return Problem(where, f"missing required key '{loc[-1]}'{hint}")
+    msg = err["msg"]
+    if kind == "value_error":
+        msg = msg.removeprefix("Value error, ")
+    given = err.get("input")
+    if not isinstance(given, (dict, list)) and kind != "value_error":
+        msg = f"{msg}; got {given!r}"
+    return Problem(where, msg)
+
+
+def _path(loc: list) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part + 1}]"
+        elif part in RULE_KINDS or part in ("fixed", "uniform", "exponential", "choice"):
+            continue  # the union tag pydantic inserts
+        elif part in ("int", "list[constrained-str]", "str"):
+            continue
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+def _model_at(model, data, loc: list):
+    """The pydantic model class that the value at loc is validated against, if one."""
+    current: object = model
+    value: object = data
+    for part in loc:
+        if isinstance(part, str) and part in RULE_KINDS:
+            current = RULE_KINDS[part]
+            continue
+        if isinstance(current, type) and issubclass(current, BaseModel):
+            if isinstance(part, str) and part in current.model_fields:
+                current = current.model_fields[part].annotation
+                value = value.get(part) if isinstance(value, dict) else None
+                continue
+            return None
+        current = _unwrap(current, value)
+        if isinstance(part, int):
+            current = _unwrap(_list_item(current), None)
+            value = value[part] if isinstance(value, list) and part < len(value) else None
+            if current is None and isinstance(value, dict) and value.get("kind") in RULE_KINDS:
+                current = RULE_KINDS[value["kind"]]
+    current = _unwrap(current, value)
+    return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _unwrap(tp, value):
+    """Strip Optional/Annotated/Union down to a model class (choosing a rule by its kind)."""
+    for _ in range(6):
+        origin = typing.get_origin(tp)
+        if origin is Annotated:
+            tp = typing.get_args(tp)[0]
+        elif origin is Union or str(origin) == "types.UnionType":
+            args = [a for a in typing.get_args(tp) if a is not type(None)]
+            if isinstance(value, dict) and "kind" in value and value["kind"] in RULE_KINDS:
+                return RULE_KINDS[value["kind"]]
+            models = [a for a in args if isinstance(a, type) and issubclass(a, BaseModel)]
+            if isinstance(value, dict) and "distribution" in value:
+                models = [m for m in models if "distribution" in m.model_fields]
+                for m in models:
+                    if value["distribution"] in typing.get_args(m.model_fields["distribution"].annotation):
+                        return m
+            tp = models[0] if len(models) == 1 else (args[0] if len(args) == 1 else tp)
+            if len(models) != 1 and len(args) != 1:
+                return tp
+        else:
+            return tp
+    return tp
+
+
+def _list_item(tp):
+    tp = _unwrap(tp, None)
+    if typing.get_origin(tp) is list:
+        return typing.get_args(tp)[0]
+    return None
+
+
+def _suggest(word: str, options) -> str:
+    close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.6)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
+def spec_json_schema() -> dict:
+    """JSON Schema of the spec file, for editors."""
+    schema = Spec.model_json_schema()
+    schema["title"] = "seqsolve spec"
+    return schema

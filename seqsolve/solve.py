@@ -201,7 +201,7 @@ class _PositionsPath:
         solver.parameters.search_branching = cp_model.FIXED_SEARCH
         status, solver = _solve_with(m.cp, self.guards, solver)
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-            _raise_for(status, self.study, self.options, "positions")
+            _raise_for(status, self.study, self.options, "positions", earlier)
         return m.decode(solver)
 
 
@@ -212,9 +212,9 @@ def _solve_with(cp: cp_model.CpModel, assumptions: list, solver: cp_model.CpSolv
     return status, solver
 
 
-def _raise_for(status, study: Study, options: SolveOptions, method: str):
+def _raise_for(status, study: Study, options: SolveOptions, method: str, earlier=()):
     if status == cp_model.INFEASIBLE:
-        raise InfeasibleError(explain(study, options))
+        raise InfeasibleError(explain(study, options, list(earlier)))
     if status == cp_model.UNKNOWN:
         raise SolverTimeoutError(
             f"no ordering found within {options.time_limit:g} s (or {options.work_limit:g} units of solver work) "
@@ -228,14 +228,20 @@ def _raise_for(status, study: Study, options: SolveOptions, method: str):
 # explanations
 
 
-def explain(study: Study, options: SolveOptions | None = None) -> Explanation:
+def explain(study: Study, options: SolveOptions | None = None, earlier: list | None = None) -> Explanation:
     """Name a smallest set of rules that cannot hold together (an assumption core, then shrunk).
 
+    earlier: orderings of the participants already designed, for rules across participants.
     Returns an Explanation with proven=False when time ran out before any proof.
     """
     options = options or SolveOptions()
-    method = choose_method(study, options)
+    earlier = earlier or []
+    method = "positions" if earlier else choose_method(study, options)
     path = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
+    if earlier:
+        for i, rule in enumerate(study.rules):
+            if isinstance(rule, ParticipantsDiffer):
+                rule.encode_against(path.m, path.guards[i], earlier)
     cp = path.fm.cp if method == "counts" else path.m.cp
     cp.clear_objective()
     cp.proto.search_strategy.clear()
@@ -274,6 +280,10 @@ def explain(study: Study, options: SolveOptions | None = None) -> Explanation:
         elif answer is None:
             minimal = False
     rules = [(i, study.rule_sources[i], study.rules[i].sentence(study.facts)) for i in sorted(core)]
+    rules = [
+        (i, src, f"{text} (with {len(earlier)} participant(s) already designed)" if study.rules[i].across_participants else text)
+        for i, src, text in rules
+    ]
     note = "" if minimal else "time ran out before every rule in it was shown to be needed"
     return Explanation(True, minimal, rules, note)
 

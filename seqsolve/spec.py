@@ -193,22 +193,26 @@ def load_study(path: str | Path, *, seed: int | None = None) -> Study:
         Listing every problem, each with its field path and what to do.
     """
     path = Path(path)
-    data = _read_toml(path)
-    spec = _validate(Spec, data, str(path))
-    rules, sources = _gather_rules(spec, path)
+    return study_from_mapping(_read_toml(path), source=str(path), seed=seed)
+
+
+def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None = None) -> Study:
+    """Validate a spec given as a dict (the parsed TOML); includes resolve relative to source."""
+    spec = _validate(Spec, data, source)
+    rules, sources = _gather_rules(spec, Path(source))
     problems = _check_references(spec, rules, sources)
     if problems:
-        raise SpecError(str(path), problems)
+        raise SpecError(source, problems)
     if seed is not None:
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
-    facts = _facts(spec, str(path))
+    facts = _facts(spec, source)
     canonical = json.dumps(
         {"spec": spec.model_dump(mode="json", exclude={"rules", "include"}), "rules": [r.model_dump(mode="json") for r in rules]},
         sort_keys=True,
     )
     return Study(
         spec=spec,
-        source=str(path),
+        source=source,
         rules=tuple(rules),
         rule_sources=tuple(sources),
         facts=facts,

@@ -1,0 +1,105 @@
+"""Oracle tables: (ordering, expected) pairs, judged by each rule's check and by its CP-SAT encoding.
+
+Windowed rules (max-run, min-run, min-gap, even-spread) get boundary cases on purpose: an encoding
+of sliding windows is where off-by-one errors hide.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from seqsolve.rules import (
+    BalancedTransitions,
+    EvenSpread,
+    ForbiddenTransition,
+    MaxRun,
+    MinGap,
+    MinRun,
+    Position,
+    RunBoundary,
+)
+from tests.conftest import fixed_feasible, make_facts
+
+
+def seq(text: str) -> np.ndarray:
+    return np.array(["abcde".index(ch) for ch in text], dtype=np.int64)
+
+
+ORACLE = [
+    # max-run: exactly L in a row is allowed, L + 1 is not, also at either end
+    (MaxRun(kind="max-run", length=2), ["aabbab"], True),
+    (MaxRun(kind="max-run", length=2), ["aaabbb"[:3] + "bab"], False),
+    (MaxRun(kind="max-run", length=2), ["ababbb"], False),
+    (MaxRun(kind="max-run", length=1), ["ababab"], True),
+    (MaxRun(kind="max-run", length=2, conditions=["a"]), ["aabbba"], True),
+    (MaxRun(kind="max-run", length=2, conditions=["f=x"]), ["abacbc"], False),  # a, b share level x
+    (MaxRun(kind="max-run", length=2, conditions=["f=x"]), ["abccab"], True),
+    # min-run: stretches at both ends count
+    (MinRun(kind="min-run", length=2), ["aabbcc"], True),
+    (MinRun(kind="min-run", length=2), ["abbcca"], False),
+    (MinRun(kind="min-run", length=3, conditions=["a"]), ["aaabcc"], True),
+    (MinRun(kind="min-run", length=3, conditions=["a"]), ["bcaaab"], True),
+    (MinRun(kind="min-run", length=3, conditions=["a"]), ["bcbaaa"], True),
+    (MinRun(kind="min-run", length=3, conditions=["a"]), ["bcabaa"], False),
+    # min-gap: gap g means at least g other trials between
+    (MinGap(kind="min-gap", conditions=["a"], gap=2), ["abcabc"], True),
+    (MinGap(kind="min-gap", conditions=["a"], gap=2), ["abacbc"], False),
+    (MinGap(kind="min-gap", conditions=["a"], gap=2, other="b"), ["acbcac"], False),
+    (MinGap(kind="min-gap", conditions=["a"], gap=1, other="b"), ["acbcac"], True),
+    (MinGap(kind="min-gap", conditions=["a"], gap=1, other="b"), ["aacbbc"], True),
+    (MinGap(kind="min-gap", conditions=["a"], gap=1, other="b"), ["acabbc"], False),
+    # forbidden transition
+    (ForbiddenTransition(kind="forbidden-transition", first="a", then="b"), ["bacbca"], True),
+    (ForbiddenTransition(kind="forbidden-transition", first="a", then="b"), ["bcaabc"], False),
+    (ForbiddenTransition(kind="forbidden-transition", first="f=x", then="c"), ["cabcab"], False),
+    # positions
+    (Position(kind="position", conditions=["c"], placement="always", first=1), ["cabcab"], True),
+    (Position(kind="position", conditions=["c"], placement="always", first=1), ["acbcab"], False),
+    (Position(kind="position", conditions=["c"], placement="never", last=2), ["ccabab"], True),
+    (Position(kind="position", conditions=["c"], placement="never", last=2), ["cababc"], False),
+    (Position(kind="position", conditions=["a", "b"], placement="always", at=[2, 3]), ["cabcab"], True),
+    (Position(kind="position", conditions=["a"], placement="always", at=[6]), ["cabcba"], True),
+    # even spread in halves: each of a, b, c has 2 of 6 trials -> 1 per half, within tolerance 0
+    (EvenSpread(kind="even-spread", segments=2, tolerance=0), ["abccab"], True),
+    (EvenSpread(kind="even-spread", segments=2, tolerance=0), ["aabbcc"], False),
+    (EvenSpread(kind="even-spread", window=3, tolerance=0), ["abcabc"], True),
+    (EvenSpread(kind="even-spread", window=3, tolerance=0), ["abccab"], False),  # "bcc"
+    (EvenSpread(kind="even-spread", window=3, tolerance=0), ["abcacb"], False),  # "cac"
+    (EvenSpread(kind="even-spread", window=3, tolerance=0), ["abacbc"], False),
+    # balanced transitions: 6 trials, 5 pairs, ideal 5/9 each -> 0 or 1 with tolerance 0
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0), ["abacbc"], True),  # 5 different pairs
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0), ["ababcc"], False),  # a->b twice
+    (BalancedTransitions(kind="balanced-transitions", tolerance=1), ["ababcc"], True),
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True), ["aabbcc"], True),  # 6 pairs, ideal 2/3
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True), ["ababcc"], False),
+]
+
+BOUNDARY_ORACLE = [
+    (RunBoundary(kind="run-boundary"), ["abcabc", "cabcab"], False),
+    (RunBoundary(kind="run-boundary"), ["abcabc", "abcabc"], True),
+    (RunBoundary(kind="run-boundary", window=2), ["abcabc", "abcabc"], False),  # b ends run 1, starts run 2 at 2
+    (RunBoundary(kind="run-boundary", window=2), ["abcacb", "aabbcc"], True),
+    (RunBoundary(kind="run-boundary", window=2), ["abccab", "bcabac"], False),
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True, exclude_repeats=True), ["abcabc", "cbacba"], True),
+    (BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True), ["abcabc", "cbacba"], False),
+]
+
+
+@pytest.mark.parametrize("rule, runs, expected", ORACLE + BOUNDARY_ORACLE)
+def test_check_and_encoding_agree_with_oracle(rule, runs, expected):
+    arrays = [seq(r) for r in runs]
+    counts = np.bincount(arrays[0], minlength=3)
+    assert all((np.bincount(a, minlength=3) == counts).all() for a in arrays), "runs of a row must share counts"
+    facts = make_facts(counts, runs=len(runs), grouped=True)
+    violations = rule.check(facts, arrays)
+    assert (not violations) == expected, violations
+    assert fixed_feasible(facts, [rule], arrays) == expected
+
+
+def test_violation_names_positions_and_what_was_found():
+    facts = make_facts([3, 3], grouped=False)
+    (v,) = MaxRun(kind="max-run", length=2).check(facts, [seq("aaabbb")[[0, 1, 2, 3, 4, 5]]])[:1]
+    assert v.positions == (0, 1, 2)
+    assert "3 trials of 'a' in a row" in v.describe()
+    assert "positions 1, 2, 3" in v.describe()

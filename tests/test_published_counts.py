@@ -122,8 +122,8 @@ def test_hand_built_de_bruijn_sequence_passes_zero_tolerance_balance(k):
     facts = make_facts(np.bincount(s, minlength=k).tolist())
     rule = BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True)
     assert rule.check(facts, [s]) == []
-    # the same trials in blocks repeat the pair (a, a): not balanced
-    broken = np.sort(s)
+    # the same trials cycled 0, 1, ..., k-1, 0, 1, ... only ever show pairs (i, i + 1): not balanced
+    broken = np.tile(np.arange(k), k)
     assert rule.check(facts, [broken]) != []
 
 

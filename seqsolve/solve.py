@@ -190,15 +190,14 @@ class _PositionsPath:
             rule.encode_against(m, g, earlier[self.n_earlier :])
         self.n_earlier = len(earlier)
         rng = np.random.default_rng(seed)
-        m.cp.proto.search_strategy.clear()
-        order = []
-        for xs in m.x:
-            for p in range(xs.shape[0]):
-                order += [xs[p, c] for c in rng.permutation(xs.shape[1])]
-        # fill positions in order, trying conditions in a random order at each one
-        m.cp.add_decision_strategy(order, cp_model.CHOOSE_FIRST, cp_model.SELECT_MAX_VALUE)
+        # a shuffled ordering as the starting hint: each participant's search starts elsewhere
+        m.cp.clear_hints()
+        for r, xs in enumerate(m.x):
+            shuffled = rng.permutation(np.repeat(np.arange(xs.shape[1]), self.study.facts.counts[r]))
+            for p, c in enumerate(shuffled):
+                for k in range(xs.shape[1]):
+                    m.cp.add_hint(xs[p, k], bool(k == c))
         solver = _params(seed, self.options)
-        solver.parameters.search_branching = cp_model.FIXED_SEARCH
         status, solver = _solve_with(m.cp, self.guards, solver)
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             _raise_for(status, self.study, self.options, "positions", earlier)

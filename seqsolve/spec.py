@@ -23,6 +23,8 @@ from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
 
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]*$"
 LABEL_PATTERN = r"^[A-Za-z0-9]+$"  # BIDS labels are alphanumeric
+# names that pandas' read_csv (and R, spreadsheets) turn into missing values
+MISSING_MARKERS = {"na", "nan", "null", "none", "n/a", "nat", "true", "false"}
 
 
 class Strict(BaseModel):
@@ -62,6 +64,13 @@ class Condition(Strict):
     levels: dict[Annotated[str, Field(pattern=NAME_PATTERN)], Annotated[str, Field(pattern=NAME_PATTERN)]] = Field(
         default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}."
     )
+
+    @field_validator("name")
+    @classmethod
+    def _not_missing_marker(cls, v: str) -> str:
+        if v.lower() in MISSING_MARKERS:
+            raise ValueError(f"'{v}' reads as a missing value in pandas, R and spreadsheets; choose another name, e.g. 'rest'")
+        return v
 
     @model_validator(mode="after")
     def _count_given(self):

@@ -34,7 +34,12 @@ def count_violations(study: Study, runs: list[np.ndarray]) -> list[Violation]:
         found = np.bincount(seq, minlength=study.facts.n_conditions)
         for c in np.flatnonzero(found != study.facts.counts[r]):
             out.append(
-                Violation(COUNT_RULE, r, (), f"{found[c]} trials of '{study.names[c]}'; the spec says {study.facts.counts[r, c]}")
+                Violation(
+                    COUNT_RULE,
+                    r,
+                    (),
+                    f"{found[c]} trials of '{study.names[c]}'; the spec says {study.facts.counts[r, c]}",
+                )
             )
     return out
 

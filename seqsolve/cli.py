@@ -36,7 +36,9 @@ def _fail(exc: SeqsolveError) -> None:
 def _progress(started: float):
     def show(done: int, total: int, label: str) -> None:
         if done < total:
-            typer.echo(f"  participant {label} ({done + 1}/{total}) ... {time.perf_counter() - started:.1f} s", err=True)
+            typer.echo(
+                f"  participant {label} ({done + 1}/{total}) ... {time.perf_counter() - started:.1f} s", err=True
+            )
 
     return show
 
@@ -64,24 +66,35 @@ def generate(
     started = time.perf_counter()
     try:
         study = load_study(spec, seed=seed)
-        typer.echo(f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), {len(study.rules)} rule(s)", err=True)
+        typer.echo(
+            f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), {len(study.rules)} rule(s)",
+            err=True,
+        )
         designs = run_generate(
-            study, out, force=force, options=SolveOptions(time_limit=time_limit, method=method), progress=_progress(started)
+            study,
+            out,
+            force=force,
+            options=SolveOptions(time_limit=time_limit, method=method),
+            progress=_progress(started),
         )
     except SeqsolveError as exc:
         _fail(exc)
     except KeyboardInterrupt:
         typer.echo("interrupted; nothing was written", err=True)
         raise typer.Exit(130) from None
-    typer.echo(f"wrote {len(designs)} participant design(s) to {out}/ in {time.perf_counter() - started:.1f} s "
-               f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks")
+    typer.echo(
+        f"wrote {len(designs)} participant design(s) to {out}/ in {time.perf_counter() - started:.1f} s "
+        f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks"
+    )
     typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv")
 
 
 @app.command()
 def audit(
     spec: SpecArg,
-    files: Annotated[list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)],
+    files: Annotated[
+        list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)
+    ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
 ) -> None:
     """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
@@ -97,8 +110,16 @@ def audit(
     except SeqsolveError as exc:
         _fail(exc)
     if as_json:
-        typer.echo(json.dumps({"valid": report.valid, "participants": report.participants,
-                               "violations": [v.__dict__ for v in report.violations]}, indent=2))
+        typer.echo(
+            json.dumps(
+                {
+                    "valid": report.valid,
+                    "participants": report.participants,
+                    "violations": [v.__dict__ for v in report.violations],
+                },
+                indent=2,
+            )
+        )
     else:
         typer.echo(f"checked {len(report.participants)} participant(s) against {len(report.rules)} rule(s)")
         for v in report.violations:

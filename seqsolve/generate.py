@@ -49,7 +49,9 @@ def design_study(
 ) -> list[Design]:
     """Orderings and schedules for every participant (no files written)."""
     found: list[ParticipantOrdering] = generate_orderings(study, options, progress)
-    designs = [Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found]
+    designs = [
+        Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
+    ]
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
@@ -58,7 +60,9 @@ def design_study(
 
 def manifest(study: Study, designs: list[Design]) -> dict:
     """What made these outputs: versions, spec hash, seeds, rule summary per participant."""
-    rules = [{"source": s, "rule": r.sentence(study.facts), "kind": r.kind} for r, s in zip(study.rules, study.rule_sources)]
+    rules = [
+        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind} for r, s in zip(study.rules, study.rule_sources)
+    ]
     return {
         "tool": "seqsolve",
         "versions": versions(),

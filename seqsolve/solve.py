@@ -280,7 +280,13 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
             minimal = False
     rules = [(i, study.rule_sources[i], study.rules[i].sentence(study.facts)) for i in sorted(core)]
     rules = [
-        (i, src, f"{text} (with {len(earlier)} participant(s) already designed)" if study.rules[i].across_participants else text)
+        (
+            i,
+            src,
+            f"{text} (with {len(earlier)} participant(s) already designed)"
+            if study.rules[i].across_participants
+            else text,
+        )
         for i, src, text in rules
     ]
     note = "" if minimal else "time ran out before every rule in it was shown to be needed"

@@ -69,7 +69,9 @@ class Condition(Strict):
     @classmethod
     def _not_missing_marker(cls, v: str) -> str:
         if v.lower() in MISSING_MARKERS:
-            raise ValueError(f"'{v}' reads as a missing value in pandas, R and spreadsheets; choose another name, e.g. 'rest'")
+            raise ValueError(
+                f"'{v}' reads as a missing value in pandas, R and spreadsheets; choose another name, e.g. 'rest'"
+            )
         return v
 
     @model_validator(mode="after")
@@ -121,7 +123,7 @@ class ChoiceGap(Strict):
         return self
 
 
-GapModel = Annotated[Union[FixedGap, UniformGap, ExponentialGap, ChoiceGap], Field(discriminator="distribution")]
+GapModel = Annotated[FixedGap | UniformGap | ExponentialGap | ChoiceGap, Field(discriminator="distribution")]
 
 
 class Timing(Strict):
@@ -216,7 +218,10 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
     facts = _facts(spec, source)
     canonical = json.dumps(
-        {"spec": spec.model_dump(mode="json", exclude={"rules", "include"}), "rules": [r.model_dump(mode="json") for r in rules]},
+        {
+            "spec": spec.model_dump(mode="json", exclude={"rules", "include"}),
+            "rules": [r.model_dump(mode="json") for r in rules],
+        },
         sort_keys=True,
     )
     return Study(
@@ -245,7 +250,9 @@ def _read_toml(path: Path) -> dict:
     except UnicodeDecodeError:
         raise SpecError(str(path), [Problem("", "not a text file in UTF-8; a spec is a TOML text file")]) from None
     except tomllib.TOMLDecodeError as exc:
-        raise SpecError(str(path), [Problem("", f"TOML syntax error: {exc}. Check quotes, '=' and [section] headers.")]) from None
+        raise SpecError(
+            str(path), [Problem("", f"TOML syntax error: {exc}. Check quotes, '=' and [section] headers.")]
+        ) from None
 
 
 def _validate(model: type[BaseModel], data: dict, source: str):
@@ -305,11 +312,16 @@ def _check_references(spec: Spec, rules: list[Rule], sources: list[str]) -> list
                 factor, level = (s.strip() for s in item.split("=", 1))
                 if factor not in levels:
                     problems.append(
-                        Problem(where, f"no factor '{factor}'{_suggest(factor, levels)}; factors come from conditions' 'levels'")
+                        Problem(
+                            where,
+                            f"no factor '{factor}'{_suggest(factor, levels)}; factors come from conditions' 'levels'",
+                        )
                     )
                 elif level not in levels[factor]:
                     problems.append(
-                        Problem(where, f"factor '{factor}' has no level '{level}'; its levels: {', '.join(levels[factor])}")
+                        Problem(
+                            where, f"factor '{factor}' has no level '{level}'; its levels: {', '.join(levels[factor])}"
+                        )
                     )
             elif item not in names:
                 problems.append(
@@ -377,7 +389,9 @@ def _problem(model: type[BaseModel], data: dict, err: dict) -> Problem:
         hint = ""
         if len(loc) > 1 and loc[-1] in Spec.model_fields:
             hint = f" ('{loc[-1]}' is a top-level key: in TOML it must come before the first [section] header)"
-        return Problem(where, f"unknown key '{loc[-1]}'{_suggest(str(loc[-1]), known)}; allowed keys: {', '.join(known)}{hint}")
+        return Problem(
+            where, f"unknown key '{loc[-1]}'{_suggest(str(loc[-1]), known)}; allowed keys: {', '.join(known)}{hint}"
+        )
     if kind in ("union_tag_invalid", "union_tag_not_found"):
         tag = err.get("ctx", {}).get("discriminator", "'kind'").strip("'")
         if tag == "kind":

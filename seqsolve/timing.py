@@ -50,7 +50,9 @@ def _schedule(study: Study, codes: np.ndarray, durs: np.ndarray, rng: np.random.
     if t.soa is not None:
         if (d > t.soa + 1e-9).any():
             worst = study.names[int(codes[np.argmax(d)])]
-            raise SpecError(study.source, [Problem("timing.soa", f"trials of '{worst}' last longer than the soa ({t.soa:g} s)")])
+            raise SpecError(
+                study.source, [Problem("timing.soa", f"trials of '{worst}' last longer than the soa ({t.soa:g} s)")]
+            )
         onsets = t.lead_in + t.soa * np.arange(n)
     else:
         gaps = jitter_gaps(t, n - 1, rng)
@@ -64,7 +66,12 @@ def _schedule(study: Study, codes: np.ndarray, durs: np.ndarray, rng: np.random.
             need = math.ceil(end / t.tr - 1e-9)
             raise SpecError(
                 study.source,
-                [Problem("timing.volumes", f"the trials need {end:g} s ({need} volumes) but the run has {t.volumes} volumes")],
+                [
+                    Problem(
+                        "timing.volumes",
+                        f"the trials need {end:g} s ({need} volumes) but the run has {t.volumes} volumes",
+                    )
+                ],
             )
         end = fixed_length
     n_vol = t.volumes if t.volumes is not None else math.ceil(end / t.tr - 1e-9)

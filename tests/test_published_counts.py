@@ -75,7 +75,9 @@ def test_max_run_solution_count_matches_recurrence(n, k, L):
             total += enumerate_orderings(make_facts(counts.tolist()), [MaxRun(kind="max-run", length=L)]).n
     assert total == no_long_runs_recurrence(n, k, L)
     # and the plain brute force agrees, as a second independent count
-    brute = sum(1 for w in itertools.product(range(k), repeat=n) if max(len(list(g)) for _, g in itertools.groupby(w)) <= L)
+    brute = sum(
+        1 for w in itertools.product(range(k), repeat=n) if max(len(list(g)) for _, g in itertools.groupby(w)) <= L
+    )
     assert total == brute
 
 

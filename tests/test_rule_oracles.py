@@ -71,7 +71,11 @@ ORACLE = [
     (BalancedTransitions(kind="balanced-transitions", tolerance=0), ["abacbc"], True),  # 5 different pairs
     (BalancedTransitions(kind="balanced-transitions", tolerance=0), ["ababcc"], False),  # a->b twice
     (BalancedTransitions(kind="balanced-transitions", tolerance=1), ["ababcc"], True),
-    (BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True), ["aabbcc"], True),  # 6 pairs, ideal 2/3
+    (
+        BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True),
+        ["aabbcc"],
+        True,
+    ),  # 6 pairs, ideal 2/3
     (BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True), ["ababcc"], False),
 ]
 
@@ -81,7 +85,11 @@ BOUNDARY_ORACLE = [
     (RunBoundary(kind="run-boundary", window=2), ["abcabc", "abcabc"], False),  # b ends run 1, starts run 2 at 2
     (RunBoundary(kind="run-boundary", window=2), ["abcacb", "aabbcc"], True),
     (RunBoundary(kind="run-boundary", window=2), ["abccab", "bcabac"], False),
-    (BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True, exclude_repeats=True), ["abcabc", "cbacba"], True),
+    (
+        BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True, exclude_repeats=True),
+        ["abcabc", "cbacba"],
+        True,
+    ),
     (BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True), ["abcabc", "cbacba"], False),
 ]
 

@@ -56,7 +56,10 @@ def rules_for(draw, k: int):
         where = draw(st.sampled_from(["first", "last", "at"]))
         value = [draw(st.integers(1, 4))] if where == "at" else draw(st.integers(1, 2))
         return Position(
-            kind="position", conditions=[draw(pick)], placement=draw(st.sampled_from(["never", "always"])), **{where: value}
+            kind="position",
+            conditions=[draw(pick)],
+            placement=draw(st.sampled_from(["never", "always"])),
+            **{where: value},
         )
     if draw(st.booleans()):
         return EvenSpread(kind="even-spread", segments=draw(st.integers(2, 3)), tolerance=draw(st.integers(0, 1)))
@@ -107,7 +110,9 @@ def test_every_generated_ordering_passes_every_check(study):
 @settings(max_examples=15, deadline=None)
 @given(st.integers(0, 10_000))
 def test_participants_get_different_orderings(seed):
-    study = make_study([2, 2, 1], [ParticipantsDiffer(kind="participants-differ", min_differences=2)], participants=6, seed=seed)
+    study = make_study(
+        [2, 2, 1], [ParticipantsDiffer(kind="participants-differ", min_differences=2)], participants=6, seed=seed
+    )
     out = generate_orderings(study)
     flat = [tuple(p.runs[0]) for p in out]
     for i in range(len(flat)):

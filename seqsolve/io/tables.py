@@ -93,7 +93,9 @@ def _code(study: Study, name: str, where: str, problems: list[Problem]) -> int |
         return study.names.index(name)
     close = difflib.get_close_matches(name, study.names, n=1)
     hint = f" (did you mean '{close[0]}'?)" if close else ""
-    problems.append(Problem(where, f"unknown condition '{name}'{hint}; the spec's conditions: {', '.join(study.names)}"))
+    problems.append(
+        Problem(where, f"unknown condition '{name}'{hint}; the spec's conditions: {', '.join(study.names)}")
+    )
     return None
 
 
@@ -105,14 +107,21 @@ def _read_csv(study: Study, path: Path, trials: dict) -> None:
         if missing:
             raise OrderingFileError(
                 str(path),
-                [Problem("line 1", f"missing column(s) {', '.join(missing)}; an ordering table has columns {', '.join(ORDERING_COLUMNS[:4])} (onset, duration optional)")],
+                [
+                    Problem(
+                        "line 1",
+                        f"missing column(s) {', '.join(missing)}; an ordering table has columns {', '.join(ORDERING_COLUMNS[:4])} (onset, duration optional)",
+                    )
+                ],
             )
         for line, row in enumerate(reader, start=2):
             where = f"line {line}"
             try:
                 run, pos = int(row["run"]), int(row["position"])
             except (TypeError, ValueError):
-                problems.append(Problem(where, f"run and position must be whole numbers; got {row['run']!r}, {row['position']!r}"))
+                problems.append(
+                    Problem(where, f"run and position must be whole numbers; got {row['run']!r}, {row['position']!r}")
+                )
                 continue
             if run < 1 or pos < 1:
                 problems.append(Problem(where, "run and position count from 1"))
@@ -133,7 +142,9 @@ def _read_csv(study: Study, path: Path, trials: dict) -> None:
         for run, slots in runs.items():
             if slots and sorted(slots) != list(range(1, len(slots) + 1)):
                 gap = next(p for p in range(1, max(slots) + 1) if p not in slots)
-                problems.append(Problem(f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ..."))
+                problems.append(
+                    Problem(f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ...")
+                )
     if problems:
         raise OrderingFileError(str(path), problems)
 
@@ -154,7 +165,15 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int]]:
         reader = csv.DictReader(fh, delimiter="\t")
         missing = [c for c in EVENTS_COLUMNS if c not in (reader.fieldnames or [])]
         if missing:
-            raise OrderingFileError(str(path), [Problem("line 1", f"missing column(s) {', '.join(missing)}; BIDS events need onset, duration, trial_type (tab-separated)")])
+            raise OrderingFileError(
+                str(path),
+                [
+                    Problem(
+                        "line 1",
+                        f"missing column(s) {', '.join(missing)}; BIDS events need onset, duration, trial_type (tab-separated)",
+                    )
+                ],
+            )
         for line, row in enumerate(reader, start=2):
             try:
                 onset = float(row["onset"])
@@ -180,13 +199,26 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]]) -
     if t.soa is None:
         raise OrderingFileError(
             str(path),
-            [Problem("", f"the file omits the baseline '{study.names[study.facts.baseline]}' and the spec's timing is jittered, so its trials cannot be placed; audit orderings.csv instead, or add the baseline rows")],
+            [
+                Problem(
+                    "",
+                    f"the file omits the baseline '{study.names[study.facts.baseline]}' and the spec's timing is jittered, so its trials cannot be placed; audit orderings.csv instead, or add the baseline rows",
+                )
+            ],
         )
     slots = {}
     for onset, code in rows:
         k = (onset - t.lead_in) / t.soa
         if abs(k - round(k)) > 1e-3 or k < -1e-9:
-            raise OrderingFileError(str(path), [Problem("", f"onset {onset:g} s is not on the spec's grid of lead_in + k * soa ({t.lead_in:g} + k * {t.soa:g} s)")])
+            raise OrderingFileError(
+                str(path),
+                [
+                    Problem(
+                        "",
+                        f"onset {onset:g} s is not on the spec's grid of lead_in + k * soa ({t.lead_in:g} + k * {t.soa:g} s)",
+                    )
+                ],
+            )
         slots[int(round(k))] = code
     n = max(int(study.facts.counts[0].sum()), max(slots) + 1)
     return [slots.get(k, study.facts.baseline) for k in range(n)]

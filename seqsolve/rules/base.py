@@ -58,9 +58,7 @@ class StudyFacts:
         """Resolve a rule's list of targets; None means every condition, one target each."""
         if items is not None:
             return [self.resolve(i) for i in items]
-        return [
-            Target(n, (c,)) for c, n in enumerate(self.names) if include_baseline or c != self.baseline
-        ]
+        return [Target(n, (c,)) for c, n in enumerate(self.names) if include_baseline or c != self.baseline]
 
 
 @dataclass(frozen=True)

@@ -54,7 +54,10 @@ class MaxRun(Rule):
                     if n > self.length:
                         out.append(
                             Violation(
-                                self.name(facts), r, tuple(range(start, start + n)), f"{n} trials of '{t.label}' in a row"
+                                self.name(facts),
+                                r,
+                                tuple(range(start, start + n)),
+                                f"{n} trials of '{t.label}' in a row",
                             )
                         )
         return out

@@ -59,6 +59,8 @@ class MinRun(Rule):
                 for start, n in runs_of(seq, member):
                     if n < self.length:
                         out.append(
-                            Violation(self.name(facts), r, tuple(range(start, start + n)), f"a stretch of {n} '{t.label}'")
+                            Violation(
+                                self.name(facts), r, tuple(range(start, start + n)), f"a stretch of {n} '{t.label}'"
+                            )
                         )
         return out

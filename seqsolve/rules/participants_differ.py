@@ -32,7 +32,7 @@ class ParticipantsDiffer(Rule):
 
     def encode_against(self, m, guard, earlier: list[list[np.ndarray]]) -> None:
         for runs in earlier:
-            for q, prev in enumerate(runs):
+            for prev in runs:
                 for r in range(m.facts.n_runs):
                     if m.length(r) != len(prev):
                         continue

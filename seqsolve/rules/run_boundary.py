@@ -25,7 +25,9 @@ class RunBoundary(Rule):
         return self.conditions or []
 
     def sentence(self, facts: StudyFacts) -> str:
-        what = "no condition (the baseline excepted)" if self.conditions is None else f"none of {quoted(self.conditions)}"
+        what = (
+            "no condition (the baseline excepted)" if self.conditions is None else f"none of {quoted(self.conditions)}"
+        )
         if self.window == 1:
             return f"{what} both ends a run and starts the next"
         return f"{what} occurs both in the last {self.window} trials of a run and the first {self.window} of the next"

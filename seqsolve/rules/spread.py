@@ -34,7 +34,9 @@ class EvenSpread(Rule):
         return self.conditions or []
 
     def sentence(self, facts: StudyFacts) -> str:
-        where = {2: "each half", 3: "each third", 4: "each quarter"}.get(self.segments, f"each of {self.segments} parts")
+        where = {2: "each half", 3: "each third", 4: "each quarter"}.get(
+            self.segments, f"each of {self.segments} parts"
+        )
         if self.window is not None:
             where = f"every {self.window} consecutive trials"
         return f"{targets_phrase(self.conditions)} keeps its share within {self.tolerance} in {where} of a run"

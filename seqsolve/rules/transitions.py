@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 from typing import Literal
 
 import numpy as np
@@ -44,14 +43,18 @@ class BalancedTransitions(Rule):
 
     kind: Literal["balanced-transitions"]
     tolerance: int = Field(default=1, ge=0, description="Allowed distance, in trials, beyond the rounded ideal count.")
-    exclude_repeats: bool = Field(default=False, description="Leave pairs of a condition with itself unbalanced and unideal.")
+    exclude_repeats: bool = Field(
+        default=False, description="Leave pairs of a condition with itself unbalanced and unideal."
+    )
     across_runs: bool = Field(default=False, description="Balance the counts summed over a participant's runs.")
     cyclic: bool = Field(default=False, description="Count the pair from a run's last trial back to its first.")
     example = 'kind = "balanced-transitions", tolerance = 1'
 
     def sentence(self, facts: StudyFacts) -> str:
         scope = "over all runs of a participant" if self.across_runs else "in every run"
-        pairs = "every ordered pair of different conditions" if self.exclude_repeats else "every ordered pair of conditions"
+        pairs = (
+            "every ordered pair of different conditions" if self.exclude_repeats else "every ordered pair of conditions"
+        )
         wrap = " (counting the wrap from last trial to first)" if self.cyclic else ""
         return f"{pairs} follows within {self.tolerance} of its ideal count {scope}{wrap}"
 
@@ -178,6 +181,11 @@ class ForbiddenTransition(Rule):
             hits = np.flatnonzero(np.isin(seq[:-1], a.codes) & np.isin(seq[1:], b.codes))
             for p in hits:
                 out.append(
-                    Violation(self.name(facts), r, (int(p), int(p) + 1), f"'{facts.names[seq[p]]}' then '{facts.names[seq[p + 1]]}'")
+                    Violation(
+                        self.name(facts),
+                        r,
+                        (int(p), int(p) + 1),
+                        f"'{facts.names[seq[p]]}' then '{facts.names[seq[p + 1]]}'",
+                    )
                 )
         return out

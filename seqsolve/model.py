@@ -16,16 +16,30 @@ class OrderingModel:
     explained from an assumption core.
     """
 
-    def __init__(self, facts: StudyFacts):
+    def __init__(self, facts: StudyFacts, fixed: list[np.ndarray] | None = None):
+        """fixed: per run, the condition code of each position, or -1 where the solver chooses.
+
+        Fixed positions get the shared constants TRUE/FALSE instead of variables, so a model of a
+        small window inside a long design stays small after presolve.
+        """
         self.facts = facts
         self.cp = cp_model.CpModel()
+        self.true = self.cp.new_constant(1)
+        self.false = self.cp.new_constant(0)
         self.x: list[np.ndarray] = []
+        self.given: list[np.ndarray] = []
         self._pairs: dict[int, np.ndarray] = {}
         self._groups: dict[tuple[int, tuple[int, ...]], np.ndarray] = {}
         for r in range(facts.n_runs):
             n = facts.run_length(r)
+            given = np.asarray(fixed[r]) if fixed is not None else np.full(n, -1)
+            self.given.append(given)
             xs = np.empty((n, facts.n_conditions), dtype=object)
             for p in range(n):
+                if given[p] >= 0:
+                    xs[p, :] = self.false
+                    xs[p, int(given[p])] = self.true
+                    continue
                 for c, name in enumerate(facts.names):
                     xs[p, c] = self.cp.new_bool_var(f"run{r + 1}_pos{p + 1}_is_{name}")
                 # one condition per trial
@@ -34,6 +48,14 @@ class OrderingModel:
                 # each run holds its declared number of trials of each condition
                 self.cp.add(sum(xs[:, c].tolist()) == int(facts.counts[r, c]))
             self.x.append(xs)
+
+    def active(self, run: int) -> bool:
+        """Does the run have a position left to the solver? Rules skip runs that are all fixed:
+        those are judged by the checker, so a window model never inherits their violations."""
+        return bool((self.given[run] < 0).any())
+
+    def runs(self) -> list[int]:
+        return [r for r in range(self.facts.n_runs) if self.active(r)]
 
     def new_guard(self, name: str):
         return self.cp.new_bool_var(f"rule:{name}")
@@ -50,6 +72,9 @@ class OrderingModel:
             xs = self.x[run]
             lits = np.empty(xs.shape[0], dtype=object)
             for p in range(xs.shape[0]):
+                if self.given[run][p] >= 0:
+                    lits[p] = self.true if self.given[run][p] in target.codes else self.false
+                    continue
                 lits[p] = self.cp.new_bool_var(f"run{run + 1}_pos{p + 1}_in_{target.label}")
                 # the group literal is the sum of its members' one-hot literals
                 self.cp.add(lits[p] == sum(xs[p, list(target.codes)].tolist()))
@@ -66,7 +91,13 @@ class OrderingModel:
             n, k = xs.shape
             ys = np.empty((max(n - 1, 0), k, k), dtype=object)
             names = self.facts.names
+            given = self.given[run]
             for p in range(n - 1):
+                if given[p] >= 0 and given[p + 1] >= 0:
+                    # both trials fixed: the pair literals are constants too
+                    ys[p] = self.false
+                    ys[p, given[p], given[p + 1]] = self.true
+                    continue
                 for a in range(k):
                     for b in range(k):
                         ys[p, a, b] = self.cp.new_bool_var(f"run{run + 1}_pos{p + 1}_{names[a]}_then_{names[b]}")

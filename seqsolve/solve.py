@@ -72,12 +72,16 @@ def derive_seed(master: int, index: int) -> int:
     return int(np.random.SeedSequence([master, index]).generate_state(1)[0] % (2**31 - 1))
 
 
+def counts_expressible(study: Study) -> list[bool]:
+    """For each rule: can the transition-count model state it exactly?"""
+    probe = FlowModel(study.facts)
+    return [rule.encode_flow(probe, probe.new_guard("probe")) for rule in study.rules]
+
+
 def choose_method(study: Study, options: SolveOptions) -> str:
     if options.method != "auto":
         return options.method
-    probe = FlowModel(study.facts)
-    ok = all(rule.encode_flow(probe, probe.new_guard("probe")) for rule in study.rules)
-    return "counts" if ok else "positions"
+    return "counts" if all(counts_expressible(study)) else "positions"
 
 
 def check_runs(study_or_facts, rules, runs: list[np.ndarray]) -> list:
@@ -121,23 +125,26 @@ def generate_orderings(
     return done
 
 
-def _params(seed: int, options: SolveOptions, time_limit: float | None = None) -> cp_model.CpSolver:
+def _params(
+    seed: int, options: SolveOptions, time_limit: float | None = None, work: float | None = None
+) -> cp_model.CpSolver:
     solver = cp_model.CpSolver()
     solver.parameters.num_workers = 1  # one worker: the result depends on the seed alone
     solver.parameters.random_seed = seed
     solver.parameters.max_time_in_seconds = time_limit or options.time_limit
-    solver.parameters.max_deterministic_time = options.work_limit
+    solver.parameters.max_deterministic_time = work or options.work_limit
     return solver
 
 
 class _CountsPath:
     """Transition-count model + trail construction (exact for the rules it accepts)."""
 
-    def __init__(self, study: Study, options: SolveOptions):
+    def __init__(self, study: Study, options: SolveOptions, rules: list[Rule] | None = None):
         self.study, self.options = study, options
         self.fm = FlowModel(study.facts)
-        self.guards = [self.fm.new_guard(f"{i}") for i in range(len(study.rules))]
-        for rule, g in zip(study.rules, self.guards):
+        rules = list(study.rules) if rules is None else rules
+        self.guards = [self.fm.new_guard(f"{i}") for i in range(len(rules))]
+        for rule, g in zip(rules, self.guards):
             if not rule.encode_flow(self.fm, g):
                 raise ValueError(f"rule cannot be encoded on pair counts: {rule.sentence(study.facts)}")
 
@@ -172,36 +179,76 @@ class _CountsPath:
 
 
 class _PositionsPath:
-    """Per-position model with a randomised decision order per participant."""
+    """Per-position model, started from a sketch that obeys the rules the counts model can state.
+
+    The sketch is repaired run by run: a model in which every other run is constant (and skipped
+    by the rules, see OrderingModel.active). Only if that fails is the whole model searched.
+    """
 
     def __init__(self, study: Study, options: SolveOptions):
         self.study, self.options = study, options
-        self.m = OrderingModel(study.facts)
-        self.guards = [self.m.new_guard(f"{i}") for i in range(len(study.rules))]
-        for rule, g in zip(study.rules, self.guards):
-            rule.encode(self.m, g)
-        self.n_earlier = 0
+        self._full: tuple[OrderingModel, list] | None = None
+        stateable = [r for r, ok in zip(study.rules, counts_expressible(study)) if ok and not r.across_participants]
+        self.sketch = _CountsPath(study, options, stateable)
+
+    def build(self, fixed: list[np.ndarray] | None, earlier: list[list[np.ndarray]]) -> tuple[OrderingModel, list]:
+        """The model (whole, or with fixed positions as constants) and its guard literals."""
+        m = OrderingModel(self.study.facts, fixed)
+        guards = [m.new_guard(f"{i}") for i in range(len(self.study.rules))]
+        for rule, g in zip(self.study.rules, guards):
+            rule.encode(m, g)
+            if rule.across_participants:
+                rule.encode_against(m, g, earlier)
+        return m, guards
+
+    def full(self, earlier) -> tuple[OrderingModel, list]:
+        if self._full is None or self._full_earlier != len(earlier):
+            self._full, self._full_earlier = self.build(None, earlier), len(earlier)
+        return self._full
+
+    def _start(self, seed: int, rng: np.random.Generator) -> list[np.ndarray]:
+        """A starting ordering for the search: valid for every rule but the position-dependent ones."""
+        try:
+            return self.sketch._sample(seed, rng)
+        except (InfeasibleError, SolverTimeoutError):
+            return [
+                rng.permutation(np.repeat(np.arange(self.study.facts.n_conditions), n)) for n in self.study.facts.counts
+            ]
 
     def solve(self, seed: int, earlier: list[list[np.ndarray]], differ: list[ParticipantsDiffer]) -> list[np.ndarray]:
-        m = self.m
-        for rule in differ:
-            # earlier participants not yet in the model are added once; the constraints stay valid
-            g = self.guards[self.study.rules.index(rule)]
-            rule.encode_against(m, g, earlier[self.n_earlier :])
-        self.n_earlier = len(earlier)
         rng = np.random.default_rng(seed)
-        # a shuffled ordering as the starting hint: each participant's search starts elsewhere
-        m.cp.clear_hints()
-        for r, xs in enumerate(m.x):
-            shuffled = rng.permutation(np.repeat(np.arange(xs.shape[1]), self.study.facts.counts[r]))
-            for p, c in enumerate(shuffled):
-                for k in range(xs.shape[1]):
-                    m.cp.add_hint(xs[p, k], bool(k == c))
-        solver = _params(seed, self.options)
-        status, solver = _solve_with(m.cp, self.guards, solver)
+        # each participant's search starts from its own sketch, so participants differ
+        current = self._start(seed, rng)
+        # repair run by run: a run with violations is re-solved with every other run fixed
+        for r in sorted(self._violated_runs(current, earlier, differ)):
+            fixed = [seq.copy() for seq in current]
+            fixed[r][:] = -1
+            m, guards = self.build(fixed, earlier)
+            status, solver = _solve_hinted(m, guards, current, _params(seed + r + 1, self.options))
+            if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+                break  # this run cannot be mended alone: search the whole design below
+            current = m.decode(solver)
+        if not self._violated_runs(current, earlier, differ):
+            return current
+        m, guards = self.full(earlier)
+        status, solver = _solve_hinted(m, guards, current, _params(seed, self.options))
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             _raise_for(status, self.study, self.options, "positions", earlier)
         return m.decode(solver)
+
+    def _violated_runs(self, runs, earlier, differ) -> set[int]:
+        found = {v.run for v in check_runs(self.study, self.study.rules, runs)}
+        found |= {r for rule in differ for _, _, r, _ in rule.clashes(runs, earlier)}
+        return set(range(len(runs))) if None in found else found
+
+
+def _solve_hinted(m: OrderingModel, guards: list, hint: list[np.ndarray], solver: cp_model.CpSolver):
+    m.cp.clear_hints()
+    for xs, given, start in zip(m.x, m.given, hint):
+        for p in np.flatnonzero(given < 0):
+            for k in range(xs.shape[1]):
+                m.cp.add_hint(xs[p, k], bool(k == start[p]))
+    return _solve_with(m.cp, guards, solver)
 
 
 def _solve_with(cp: cp_model.CpModel, assumptions: list, solver: cp_model.CpSolver):
@@ -236,15 +283,13 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     options = options or SolveOptions()
     earlier = earlier or []
     method = "positions" if earlier else choose_method(study, options)
-    path = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
-    if earlier:
-        for i, rule in enumerate(study.rules):
-            if isinstance(rule, ParticipantsDiffer):
-                rule.encode_against(path.m, path.guards[i], earlier)
-    cp = path.fm.cp if method == "counts" else path.m.cp
-    cp.clear_objective()
-    cp.proto.search_strategy.clear()
-    guards = path.guards
+    if method == "counts":
+        path = _CountsPath(study, options)
+        cp, guards = path.fm.cp, path.guards
+        cp.clear_objective()
+    else:
+        m, guards = _PositionsPath(study, options).full(earlier)
+        cp = m.cp
     deadline = time.perf_counter() + options.explain_time_limit
 
     def infeasible(active: list[int]) -> bool | None:

@@ -10,6 +10,7 @@ import hashlib
 import json
 import math
 import tomllib
+import types
 import typing
 from dataclasses import dataclass
 from pathlib import Path
@@ -457,7 +458,7 @@ def _unwrap(tp, value):
         origin = typing.get_origin(tp)
         if origin is Annotated:
             tp = typing.get_args(tp)[0]
-        elif origin is Union or str(origin) == "types.UnionType":
+        elif origin is Union or origin is types.UnionType:
             args = [a for a in typing.get_args(tp) if a is not type(None)]
             if isinstance(value, dict) and "kind" in value and value["kind"] in RULE_KINDS:
                 return RULE_KINDS[value["kind"]]

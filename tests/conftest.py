@@ -11,7 +11,7 @@ from seqsolve.model import OrderingModel
 from seqsolve.rules import StudyFacts
 from seqsolve.spec import study_from_mapping
 
-NAMES = ("a", "b", "c", "d", "e")
+NAMES = tuple("abcdefghijklmnop")
 
 
 def make_facts(counts, runs: int = 1, baseline: int | None = None, grouped: bool = False) -> StudyFacts:

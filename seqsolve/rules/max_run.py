@@ -31,7 +31,7 @@ class MaxRun(Rule):
     def encode(self, m, guard) -> None:
         L = self.length
         for t in m.facts.targets(self.conditions, include_baseline=True):
-            for r in range(m.facts.n_runs):
+            for r in m.runs():
                 lits = m.member(r, t)
                 # every window of L+1 trials holds at most L of the target
                 for p in range(len(lits) - L):

@@ -34,7 +34,7 @@ class MinGap(Rule):
         g = self.gap
         facts = m.facts
         for t in facts.targets(self.conditions, include_baseline=True):
-            for r in range(facts.n_runs):
+            for r in m.runs():
                 a = m.member(r, t)
                 if self.other is None:
                     # any g+1 consecutive trials hold at most one of the target

@@ -31,7 +31,7 @@ class MinRun(Rule):
     def encode(self, m, guard) -> None:
         M = self.length
         for t in m.facts.targets(self.conditions, include_baseline=False):
-            for r in range(m.facts.n_runs):
+            for r in m.runs():
                 lits = m.member(r, t)
                 n = len(lits)
                 # a stretch that starts at p goes on for at least M trials

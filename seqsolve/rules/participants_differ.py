@@ -33,7 +33,7 @@ class ParticipantsDiffer(Rule):
     def encode_against(self, m, guard, earlier: list[list[np.ndarray]]) -> None:
         for runs in earlier:
             for prev in runs:
-                for r in range(m.facts.n_runs):
+                for r in m.runs():
                     if m.length(r) != len(prev):
                         continue
                     same = [m.x[r][p, int(c)] for p, c in enumerate(prev)]

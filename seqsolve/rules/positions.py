@@ -69,6 +69,8 @@ class Position(Rule):
         t = self.target(m.facts)
         want = 1 if self.placement == "always" else 0
         for r in self.run_indices(m.facts):
+            if not m.active(r):
+                continue
             lits = m.member(r, t)
             for p in self.places(len(lits)):
                 m.cp.add(lits[p] == want).only_enforce_if(guard)

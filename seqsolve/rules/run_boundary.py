@@ -37,6 +37,8 @@ class RunBoundary(Rule):
         facts = m.facts
         for t in facts.targets(self.conditions, include_baseline=False):
             for r in range(facts.n_runs - 1):
+                if not (m.active(r) or m.active(r + 1)):
+                    continue
                 before, after = m.member(r, t)[-w:], m.member(r + 1, t)[:w]
                 # the target may sit on one side of the break, not both
                 for i in before:

@@ -56,7 +56,7 @@ class EvenSpread(Rule):
     def encode(self, m, guard) -> None:
         facts = m.facts
         for t in facts.targets(self.conditions, include_baseline=False):
-            for r in range(facts.n_runs):
+            for r in m.runs():
                 lits = m.member(r, t)
                 n_t = int(facts.counts[r, list(t.codes)].sum())
                 for a, b in self.spans(len(lits)):
@@ -80,7 +80,7 @@ class EvenSpread(Rule):
                             Violation(
                                 self.name(facts),
                                 r,
-                                (a, b - 1),
+                                tuple(range(a, b)),
                                 f"{found} trials of '{t.label}' in positions {a + 1}-{b}; allowed {lo} to {hi}",
                             )
                         )

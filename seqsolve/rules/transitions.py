@@ -72,9 +72,11 @@ class BalancedTransitions(Rule):
             out.append((runs, low, high))
         return out
 
-    def _add_bounds(self, cp, count_of, facts, guard) -> None:
+    def _add_bounds(self, cp, count_of, facts, guard, active=None) -> None:
         k = facts.n_conditions
         for runs, low, high in self.bounds(facts):
+            if active is not None and not any(active(r) for r in runs):
+                continue
             for a in range(k):
                 for b in range(k):
                     expr = sum(count_of(r, a, b) for r in runs)
@@ -94,7 +96,7 @@ class BalancedTransitions(Rule):
             expr = sum(m.pairs(r)[:, a, b].tolist())
             return expr + wraps[r][a, b] if self.cyclic else expr
 
-        self._add_bounds(m.cp, count_of, m.facts, guard)
+        self._add_bounds(m.cp, count_of, m.facts, guard, active=m.active)
 
     def encode_flow(self, f, guard) -> bool:
         wraps = {}
@@ -117,11 +119,22 @@ class BalancedTransitions(Rule):
             for a, b in bad:
                 lo, hi = int(low[a, b]), int(high[a, b])
                 allowed = f"{lo}" if lo == hi else f"{lo} to {hi}"
+                run = group[0] if len(group) == 1 else None
+                where = ()
+                if run is not None:
+                    # too many: where the pair stands; too few: where its first condition stands
+                    seq = runs[run]
+                    hits = (
+                        np.flatnonzero((seq[:-1] == a) & (seq[1:] == b))
+                        if found[a, b] > hi
+                        else np.flatnonzero(seq == a)
+                    )
+                    where = tuple(int(p) for p in hits)
                 out.append(
                     Violation(
                         self.name(facts),
-                        group[0] if len(group) == 1 else None,
-                        (),
+                        run,
+                        where,
                         f"'{names[a]}' then '{names[b]}' occurs {found[a, b]} times; allowed {allowed}",
                     )
                 )
@@ -160,7 +173,7 @@ class ForbiddenTransition(Rule):
 
     def encode(self, m, guard) -> None:
         a, b = self._pair(m.facts)
-        for r in range(m.facts.n_runs):
+        for r in m.runs():
             la, lb = m.member(r, a), m.member(r, b)
             # no a directly followed by b
             for p in range(len(la) - 1):

@@ -148,6 +148,36 @@ class Timing(Strict):
         return self
 
 
+class CustomHRF(Strict):
+    """A response shape given as samples."""
+
+    samples: list[float] = Field(min_length=2, description="Response values from time 0 on.")
+    step: float = Field(gt=0, description="Seconds between samples.")
+
+
+class Analysis(Strict):
+    """[analysis]: the GLM the design is scored for."""
+
+    hrf: Literal["double-gamma", "double-gamma-derivative"] | CustomHRF = Field(
+        default="double-gamma", description="Canonical double gamma, with its temporal derivative, or custom samples."
+    )
+    resolution: float = Field(default=0.1, gt=0, le=1, description="Fine time grid of the regressors, in seconds.")
+    sample_offset: float = Field(default=0.0, ge=0, description="Seconds into each TR at which the volume is sampled.")
+    high_pass_cutoff: float = Field(
+        default=128.0, ge=0, description="Discrete-cosine high-pass cutoff in seconds; 0: none."
+    )
+    drift_degree: int = Field(default=0, ge=0, le=6, description="Polynomial drift terms per run beyond the intercept.")
+    ar1: float = Field(default=0.0, ge=0, lt=1, description="AR(1) coefficient of the noise, for prewhitening.")
+    contrasts: list[str] | Literal["each-vs-baseline", "all-pairs"] = Field(
+        default="each-vs-baseline", description="Expressions like 'gain - loss', or a named set."
+    )
+    fir_window: float = Field(default=20.0, gt=0, description="Length of the estimated response (FIR), in seconds.")
+    fir_step: float | None = Field(default=None, gt=0, description="FIR bin width in seconds (default: the TR).")
+    criterion: Literal["A", "D"] = Field(
+        default="A", description="A-optimality (1/trace) or D-optimality (determinant)."
+    )
+
+
 class RuleSet(Strict):
     """A file of ready-made rules in rules/."""
 
@@ -163,6 +193,7 @@ class Spec(Strict):
     timing: Timing
     include: list[str] = Field(default_factory=list, description="Rule sets from rules/ (name or .toml path).")
     rules: list[AnyRule] = Field(default_factory=list)
+    analysis: Analysis = Field(default_factory=Analysis)
 
 
 @dataclass(frozen=True)
@@ -328,10 +359,26 @@ def _check_references(spec: Spec, rules: list[Rule], sources: list[str]) -> list
                 problems.append(
                     Problem(where, f"unknown condition '{item}'{_suggest(item, names)}; conditions: {', '.join(names)}")
                 )
+    problems += _check_contrasts(spec)
     if not problems and all(c.share is None for c in spec.conditions):
         if sum(c.trials for c in spec.conditions) == 0:
             problems.append(Problem("conditions", "every condition has 0 trials; give some trials"))
     return problems
+
+
+def _check_contrasts(spec: Spec) -> list[Problem]:
+    from seqsolve.efficiency.contrasts import ContrastSyntaxError, parse_contrast
+
+    if isinstance(spec.analysis.contrasts, str):
+        return []
+    modelled = [c.name for c in spec.conditions if not c.baseline]
+    out = []
+    for i, text in enumerate(spec.analysis.contrasts, start=1):
+        try:
+            parse_contrast(text, modelled)
+        except ContrastSyntaxError as exc:
+            out.append(Problem(f"analysis.contrasts[{i}]", str(exc)))
+    return out
 
 
 def _level_map(spec: Spec) -> dict[str, dict[str, list[str]]]:

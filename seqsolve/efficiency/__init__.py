@@ -1,0 +1,13 @@
+"""Efficiency of schedules for a planned analysis: pure numpy/scipy, no solver imports.
+
+hrf.py: response shapes. nuisance.py: intercepts, drifts, prewhitening. contrasts.py: our own
+contrast parser. reference.py: the straightforward design-matrix computation (kept as the judge
+of the fast paths). fast.py: batched and incremental evaluators. metrics.py: the figures of merit
+and the report of one schedule. limits.py: upper bounds no design can pass.
+"""
+
+from seqsolve.efficiency.contrasts import parse_contrast
+from seqsolve.efficiency.fast import Evaluator
+from seqsolve.efficiency.setup import AnalysisSetup, make_setup
+
+__all__ = ["AnalysisSetup", "Evaluator", "make_setup", "parse_contrast"]

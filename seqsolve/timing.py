@@ -154,3 +154,13 @@ def _fit_total(gaps: np.ndarray, target: float, t: Timing, rng: np.random.Genera
         # the target is off the grid: the last gap takes the remainder, within range if it can
         gaps[np.argmax(gaps) if residue < 0 else np.argmin(gaps)] += residue
     return gaps
+
+
+def schedule_from_onsets(study: Study, codes: np.ndarray, onsets: np.ndarray) -> RunSchedule:
+    """A schedule with given onsets (seconds), e.g. read from a file; durations from the spec."""
+    t = study.spec.timing
+    d = trial_durations(study)[codes]
+    end = float(onsets[-1] + d[-1] + t.lead_out) if len(codes) else t.lead_in + t.lead_out
+    length = t.volumes * t.tr if t.volumes is not None else end
+    n_vol = t.volumes if t.volumes is not None else math.ceil(end / t.tr - 1e-9)
+    return RunSchedule(np.asarray(codes), np.asarray(onsets, dtype=float), d, max(length, end), int(n_vol), t.tr)

@@ -225,8 +225,7 @@ class Evaluator:
 
     def _fir_information(self, codes: np.ndarray) -> np.ndarray:
         """FIR information for many orderings from Omega, without forming X: M = S' Omega S with S 0/1."""
-        b, n = codes.shape
-        lags = self.setup.fir_lags
+        b = codes.shape[0]
         p = self.est.p
         # raw 0/1 design as (B, n_scans, p) built by scatter, then X' Omega X
         raw = np.zeros((b, self.layout.n_scans, p))
@@ -279,7 +278,7 @@ class Evaluator:
         mm = np.broadcast_to(m, (len(trial),) + m.shape).copy()
         b = np.arange(len(trial))[:, None, None]
         rows = np.arange(part.p)[None, :, None]
-        for side, cond, sign in (("new", new, 1.0), ("old", old, -1.0)):
+        for cond, sign in ((new, 1.0), (old, -1.0)):
             col0 = part.col[cond]
             has = col0 >= 0
             g = part.group[cond]

@@ -60,18 +60,25 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
     OrderingFileError
         Naming the file, the line and what to do.
     """
+    return {label: [codes for codes, _ in runs] for label, runs in read_designs(study, paths).items()}
+
+
+def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
+    """Like read_orderings, with each run's onsets in seconds where the files give every one (else None)."""
     trials: dict[str, dict[int, dict[int, int]]] = {}
+    onsets: dict[tuple[str, int, int], float] = {}
     for path in map(Path, paths):
         if not path.is_file():
             raise OrderingFileError(str(path), [Problem("", "file not found")])
         if path.name.endswith("_events.tsv") or path.suffix == ".tsv":
-            label, run, codes = _read_events(study, path)
+            label, run, codes, times = _read_events(study, path)
             trials.setdefault(label, {})
             if run in trials[label]:
                 raise OrderingFileError(str(path), [Problem("", f"participant {label} run {run} was already read")])
             trials[label][run] = dict(enumerate(codes, start=1))
+            onsets.update({(label, run, p): t for p, t in enumerate(times, start=1)})
         else:
-            _read_csv(study, path, trials)
+            _read_csv(study, path, trials, onsets)
     out = {}
     for label, runs in trials.items():
         if sorted(runs) != list(range(1, study.facts.n_runs + 1)):
@@ -84,7 +91,11 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
                     )
                 ],
             )
-        out[label] = [np.array([runs[r][p] for p in sorted(runs[r])], dtype=np.int64) for r in sorted(runs)]
+        out[label] = []
+        for r in sorted(runs):
+            codes = np.array([runs[r][p] for p in sorted(runs[r])], dtype=np.int64)
+            times = [onsets.get((label, r, p)) for p in sorted(runs[r])]
+            out[label].append((codes, None if None in times else np.array(times, dtype=float)))
     return out
 
 
@@ -99,7 +110,7 @@ def _code(study: Study, name: str, where: str, problems: list[Problem]) -> int |
     return None
 
 
-def _read_csv(study: Study, path: Path, trials: dict) -> None:
+def _read_csv(study: Study, path: Path, trials: dict, onsets: dict) -> None:
     problems: list[Problem] = []
     with path.open(newline="", encoding="utf-8-sig") as fh:
         reader = csv.DictReader(fh)
@@ -136,6 +147,12 @@ def _read_csv(study: Study, path: Path, trials: dict) -> None:
                 problems.append(Problem(where, f"participant {label} run {run} position {pos} appears twice"))
             elif code is not None:
                 slot[pos] = code
+                try:
+                    onsets[(label, run, pos)] = float(row.get("onset") or "nan")
+                except ValueError:
+                    problems.append(Problem(where, f"onset must be a number of seconds; got {row.get('onset')!r}"))
+                if onsets.get((label, run, pos)) != onsets.get((label, run, pos)):  # NaN: no onset given
+                    onsets.pop((label, run, pos))
             if len(problems) >= 20:
                 break
     for label, runs in trials.items():
@@ -152,7 +169,7 @@ def _read_csv(study: Study, path: Path, trials: dict) -> None:
 _BIDS = re.compile(r"sub-(?P<sub>[A-Za-z0-9]+)_.*?(?:run-(?P<run>\d+)_)?events\.tsv$")
 
 
-def _read_events(study: Study, path: Path) -> tuple[str, int, list[int]]:
+def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[float]]:
     m = _BIDS.search(path.name)
     if not m:
         raise OrderingFileError(
@@ -188,12 +205,14 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int]]:
     rows.sort()
     codes = [c for _, c in rows]
     base = study.facts.baseline
-    if base is None or base in codes or study.facts.counts[run - 1 if run <= study.facts.n_runs else 0, base] == 0:
-        return label, run, codes
-    return label, run, _restore_baseline(study, path, rows)
+    if base is None or base in codes or study.facts.counts[min(run, study.facts.n_runs) - 1, base] == 0:
+        return label, run, codes, [t for t, _ in rows]
+    codes = _restore_baseline(study, path, rows, run)
+    t = study.spec.timing
+    return label, run, codes, [t.lead_in + k * t.soa for k in range(len(codes))]
 
 
-def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]]) -> list[int]:
+def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], run: int) -> list[int]:
     """Put the omitted baseline trials back into the empty slots of a fixed-SOA run."""
     t = study.spec.timing
     if t.soa is None:
@@ -220,5 +239,5 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]]) -
                 ],
             )
         slots[int(round(k))] = code
-    n = max(int(study.facts.counts[0].sum()), max(slots) + 1)
+    n = max(study.facts.run_length(min(run, study.facts.n_runs) - 1), max(slots) + 1)
     return [slots.get(k, study.facts.baseline) for k in range(n)]

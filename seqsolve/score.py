@@ -1,0 +1,181 @@
+"""The score job: efficiency and sequence figures of orderings, per participant and run, with references."""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from seqsolve.efficiency.fast import Evaluator, batch_efficiency
+from seqsolve.efficiency.grid import make_layout
+from seqsolve.efficiency.limits import estimation_bound_identity
+from seqsolve.efficiency.metrics import conditional_entropy, counterbalance_deviation, max_correlation
+from seqsolve.efficiency.setup import AnalysisSetup, make_setup
+from seqsolve.spec import Study
+from seqsolve.timing import RunSchedule, make_schedules, schedule_from_onsets, trial_durations
+
+#: random orderings averaged for the 'random' reference
+N_RANDOM = 100
+
+
+@dataclass
+class ScoreRow:
+    """Figures of one run (run = 1, 2, ...) or of all runs together (run = 'all')."""
+
+    participant: str
+    run: str
+    detection: float
+    estimation: float
+    per_contrast: dict[str, float]
+    counterbalance_max: float
+    entropy_bits: float
+    max_correlation: float
+    detection_vs_block: float | None = None
+    estimation_vs_random: float | None = None
+    estimation_vs_bound: float | None = None
+    warnings: list[str] = field(default_factory=list)
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def evaluator_for(study: Study, setup: AnalysisSetup, schedules: list[RunSchedule]) -> Evaluator:
+    layout = make_layout(setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(study))
+    return Evaluator(setup, layout, study.facts.n_conditions)
+
+
+def onsets_fixed(study: Study) -> bool:
+    """Do onsets stay put when labels change? (fixed SOA, or every condition lasting the same)."""
+    return study.spec.timing.soa is not None or len(set(trial_durations(study).tolist())) == 1
+
+
+def block_ordering(counts: np.ndarray, baseline: int | None, block: int) -> np.ndarray:
+    """Conditions in blocks of `block` trials taken in turn (the baseline's blocks between them)."""
+    left = counts.astype(int).copy()
+    order = [c for c in range(len(counts)) if c != baseline]
+    out: list[int] = []
+    while left.sum():
+        for c in order:
+            take = min(block, left[c])
+            out += [c] * take
+            left[c] -= take
+            if baseline is not None and left[baseline]:
+                rest = min(block, left[baseline])
+                out += [baseline] * rest
+                left[baseline] -= rest
+        if baseline is not None and all(left[c] == 0 for c in order):
+            out += [baseline] * left[baseline]
+            left[baseline] = 0
+    return np.asarray(out, dtype=np.int64)
+
+
+def _score_orderings(
+    study: Study, setup: AnalysisSetup, designs: list[list[np.ndarray]], seed: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Detection and estimation of several designs (each a list of runs) under the spec's timing."""
+    if onsets_fixed(study):
+        ev = evaluator_for(study, setup, make_schedules(study, designs[0], seed))
+        return ev.score_many(np.array([np.concatenate(d) for d in designs]))
+    det, est = [], []
+    for d in designs:
+        a, b = evaluator_for(study, setup, make_schedules(study, d, seed)).score(np.concatenate(d))
+        det.append(a)
+        est.append(b)
+    return np.array(det), np.array(est)
+
+
+def references(study: Study, setup: AnalysisSetup, runs_index: list[int], seed: int = 0) -> dict[str, float]:
+    """Best block design's detection and the mean random ordering's estimation, same counts and timing."""
+    counts = [study.facts.counts[r] for r in runs_index]
+    biggest = int(max(c.max() for c in counts))
+    sizes = sorted({b for b in (1, 2, 3, 4, 5, 6, 8, 10, 12, 15, 16, 20, 24, 30, 40) if b <= biggest} | {biggest})
+    blocks = [[block_ordering(c, study.facts.baseline, b) for c in counts] for b in sizes]
+    det_blocks, _ = _score_orderings(study, setup, blocks, seed)
+    rng = np.random.default_rng(seed)
+    randoms = [[rng.permutation(np.repeat(np.arange(len(c)), c)) for c in counts] for _ in range(N_RANDOM)]
+    _, est_random = _score_orderings(study, setup, randoms, seed)
+    return {
+        "block_detection": float(det_blocks.max()),
+        "block_size": sizes[int(np.argmax(det_blocks))],
+        "random_estimation": float(est_random.mean()),
+    }
+
+
+def score_design(
+    study: Study, label: str, runs: list[np.ndarray], schedules: list[RunSchedule], with_references: bool = True
+) -> list[ScoreRow]:
+    """Rows for each run alone and for all runs together."""
+    setup = make_setup(study)
+    rows = []
+    parts = [([r], f"{r + 1}") for r in range(len(runs))] + ([(list(range(len(runs))), "all")] if len(runs) > 1 else [])
+    for idx, name in parts:
+        sub = [schedules[r] for r in idx]
+        ev = evaluator_for(study, setup, sub)
+        codes = np.concatenate([runs[r] for r in idx])
+        det, est = ev.score(codes)
+        md, _ = ev.information(codes)
+        per = _per_contrast(setup, md)
+        xd = ev.det.design(codes[None])[0][:, :: setup.n_basis]
+        counts = study.facts.counts[idx]
+        row = ScoreRow(
+            participant=label,
+            run=name,
+            detection=det,
+            estimation=est,
+            per_contrast=per,
+            counterbalance_max=counterbalance_deviation([runs[r] for r in idx], counts)["max"],
+            entropy_bits=conditional_entropy([runs[r] for r in idx], study.facts.n_conditions),
+            max_correlation=max_correlation(xd),
+        )
+        if det == 0 or est == 0:
+            row.warnings.append("information matrix singular or ill-conditioned: efficiency set to 0")
+        if with_references:
+            ref = references(study, setup, idx)
+            row.detection_vs_block = det / ref["block_detection"] if ref["block_detection"] > 0 else None
+            row.estimation_vs_random = est / ref["random_estimation"] if ref["random_estimation"] > 0 else None
+        bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
+        row.estimation_vs_bound = est / bound if bound else None
+        rows.append(row)
+    return rows
+
+
+def _per_contrast(setup: AnalysisSetup, md: np.ndarray) -> dict[str, float]:
+    """Detection efficiency of each contrast on its own."""
+    out = {}
+    for label, row in zip(setup.contrast_labels, setup.detection_contrast()):
+        eff, _ = batch_efficiency(md[None], row[None, :], setup.criterion)
+        out[label] = float(eff[0])
+    return out
+
+
+def _estimation_bound(study: Study, setup: AnalysisSetup, idx: list[int], n_volumes: int) -> float | None:
+    """The bound of limits.py when it applies: identity or all-pairs contrasts, bins of one TR."""
+    if study.spec.timing.soa is None or abs(study.spec.timing.soa - setup.tr) > 1e-9 or setup.fir_step != setup.tr:
+        return None
+    counts = study.facts.counts[idx][:, list(setup.modelled)].sum(axis=0)
+    # nuisance beyond the intercept (drifts, prewhitening) only lowers efficiency: the bound holds
+    if study.spec.analysis.contrasts == "each-vs-baseline":
+        return estimation_bound_identity(counts, n_volumes, setup.fir_lags)
+    return None
+
+
+def score_files(study: Study, paths, with_references: bool = True) -> list[ScoreRow]:
+    """Score ordering files (orderings.csv or BIDS events): onsets from the files where given,
+    else from the spec's timing (seeded by the study seed).
+
+    Raises
+    ------
+    OrderingFileError
+        When a file cannot be read against the spec.
+    """
+    from seqsolve.io.tables import read_designs
+
+    rows = []
+    for label, runs in read_designs(study, paths).items():
+        codes = [c for c, _ in runs]
+        if all(t is not None for _, t in runs):
+            schedules = [schedule_from_onsets(study, c, t) for c, t in runs]
+        else:
+            schedules = make_schedules(study, codes, study.spec.study.seed)
+        rows += score_design(study, label, codes, schedules, with_references)
+    return rows

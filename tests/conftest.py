@@ -21,7 +21,7 @@ def make_facts(counts, runs: int = 1, baseline: int | None = None, grouped: bool
     return StudyFacts(NAMES[:k], np.tile(np.asarray(counts, dtype=np.int64), (runs, 1)), baseline, levels)
 
 
-def make_study(counts, rules=(), runs=1, participants=1, baseline=None, grouped=False, seed=0, timing=None):
+def make_study(counts, rules=(), runs=1, participants=1, baseline=None, grouped=False, seed=0, timing=None, analysis=None, durations=None):
     conds = []
     for i, n in enumerate(counts):
         c = {"name": NAMES[i], "trials": int(n)}
@@ -29,12 +29,15 @@ def make_study(counts, rules=(), runs=1, participants=1, baseline=None, grouped=
             c["levels"] = {"f": "x" if i < 2 else "y"}
         if baseline == i:
             c["baseline"] = True
+        if durations is not None:
+            c["duration"] = float(durations[i])
         conds.append(c)
     data = {
         "study": {"name": "t", "task": "t", "participants": participants, "runs": runs, "seed": seed},
         "conditions": conds,
         "timing": timing or {"tr": 2.0, "soa": 2.0},
         "rules": [r.model_dump(exclude_none=True) if hasattr(r, "model_dump") else r for r in rules],
+        "analysis": analysis or {},
     }
     return study_from_mapping(data)
 

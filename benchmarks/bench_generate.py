@@ -141,7 +141,9 @@ def main() -> None:
     print(
         f"time to the first valid ordering, {RUNS} runs jointly, rules: max-run 2, balanced transitions +-1, run boundary"
     )
-    print(f"seqsolve: median of {reps} (auto: counts model); others: one try each, {limit:g} s limit (a timed-out size skips larger ones)")
+    print(
+        f"seqsolve: median of {reps} (auto: counts model); others: one try each, {limit:g} s limit (a timed-out size skips larger ones)"
+    )
     print("per-position: seqsolve's own per-position model searched whole, no sketch; one-hot+products: 2 workers\n")
     head = f"{'K':>3} {'N/run':>6} | {'seqsolve':>10} | {'per-position':>12} | {'one-hot+products':>16} | {'shuffle (max-run only)':>22} | {'speed-up vs one-hot':>19}"
     print(head)

@@ -21,7 +21,18 @@ def make_facts(counts, runs: int = 1, baseline: int | None = None, grouped: bool
     return StudyFacts(NAMES[:k], np.tile(np.asarray(counts, dtype=np.int64), (runs, 1)), baseline, levels)
 
 
-def make_study(counts, rules=(), runs=1, participants=1, baseline=None, grouped=False, seed=0, timing=None, analysis=None, durations=None):
+def make_study(
+    counts,
+    rules=(),
+    runs=1,
+    participants=1,
+    baseline=None,
+    grouped=False,
+    seed=0,
+    timing=None,
+    analysis=None,
+    durations=None,
+):
     conds = []
     for i, n in enumerate(counts):
         c = {"name": NAMES[i], "trials": int(n)}

@@ -32,7 +32,9 @@ from tests.conftest import make_study
 
 
 def test_double_gamma_landmarks():
-    peak = optimize.minimize_scalar(lambda t: -double_gamma(t), bounds=(2, 8), method="bounded", options={"xatol": 1e-8})
+    peak = optimize.minimize_scalar(
+        lambda t: -double_gamma(t), bounds=(2, 8), method="bounded", options={"xatol": 1e-8}
+    )
     assert peak.x == pytest.approx(4.9985, abs=5e-4)
     assert double_gamma(peak.x) == pytest.approx(0.175441, abs=1e-6)
     zero = optimize.brentq(double_gamma, 8, 14)
@@ -75,8 +77,13 @@ def test_cosine_drift_equals_nilearn():
 def test_detection_agrees_with_nilearn_design_matrix_on_our_events_file(tmp_path):
     from nilearn.glm.first_level import make_first_level_design_matrix
 
-    study = make_study([20, 20, 20], baseline=2, timing={"tr": 2.0, "soa": 4.0, "lead_out": 16.0},
-                       durations=[2.0, 2.0, 2.0], analysis={"contrasts": ["a - b", "a + b"]})
+    study = make_study(
+        [20, 20, 20],
+        baseline=2,
+        timing={"tr": 2.0, "soa": 4.0, "lead_out": 16.0},
+        durations=[2.0, 2.0, 2.0],
+        analysis={"contrasts": ["a - b", "a + b"]},
+    )
     rng = np.random.default_rng(3)
     runs = [rng.permutation(np.repeat([0, 1, 2], 20))]
     (sched,) = make_schedules(study, runs, 0)
@@ -106,8 +113,12 @@ def gf_m_sequence(q: int, n: int) -> np.ndarray:
 
 
 def fir_setup(counts, lags, baseline=0, high_pass=0):
-    study = make_study(counts, baseline=baseline, timing={"tr": 2.0, "soa": 2.0},
-                       analysis={"fir_window": 2.0 * lags, "high_pass_cutoff": high_pass})
+    study = make_study(
+        counts,
+        baseline=baseline,
+        timing={"tr": 2.0, "soa": 2.0},
+        analysis={"fir_window": 2.0 * lags, "high_pass_cutoff": high_pass},
+    )
     return study, make_setup(study)
 
 
@@ -155,8 +166,12 @@ def test_m_sequence_fir_information_has_the_closed_form_and_efficiency_27_over_4
 
 def test_m_sequence_reaches_the_pairwise_bound_exactly():
     s = gf_m_sequence(3, 4)
-    study = make_study(np.bincount(s).tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0},
-                       analysis={"fir_window": 20.0, "high_pass_cutoff": 0, "contrasts": ["b - c"]})
+    study = make_study(
+        np.bincount(s).tolist(),
+        baseline=0,
+        timing={"tr": 2.0, "soa": 2.0},
+        analysis={"fir_window": 20.0, "high_pass_cutoff": 0, "contrasts": ["b - c"]},
+    )
     setup = make_setup(study)
     ev, _ = evaluator_for(study, setup, s, circular=True)
     assert ev.score(s)[1] == pytest.approx(estimation_bound_pairwise([27, 27], 10), rel=1e-12)
@@ -166,8 +181,9 @@ def test_binary_m_sequence_detection_closed_form():
     """0/1 m-sequence, 8 bits: |S(f)|^2 = (N+1)/4 off zero, so detection = (N+1)/(4N) (N|h|^2 - (sum h)^2)."""
     s = max_len_seq(8)[0].astype(np.int64)
     big_n = len(s)
-    study = make_study(np.bincount(s).tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0},
-                       analysis={"high_pass_cutoff": 0})
+    study = make_study(
+        np.bincount(s).tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 0}
+    )
     setup = make_setup(study)
     ev, layout = evaluator_for(study, setup, s, circular=True)
     one = np.zeros(big_n, dtype=np.int64)
@@ -207,14 +223,20 @@ def test_no_ordering_exceeds_the_estimation_bounds(circular):
     study, setup = fir_setup(counts, lags=8)
     rng = np.random.default_rng(5)
     base = np.repeat(np.arange(4), counts)
-    designs = [rng.permutation(base) for _ in range(300)] + [block_ordering(np.array(counts), 0, b) for b in (1, 2, 5, 10)]
+    designs = [rng.permutation(base) for _ in range(300)] + [
+        block_ordering(np.array(counts), 0, b) for b in (1, 2, 5, 10)
+    ]
     ev, _ = evaluator_for(study, setup, designs[0], circular=circular)
     _, est = ev.score_many(np.array(designs))
     bound = estimation_bound_identity([20, 20, 10], 80, 8)
     assert est.max() <= bound + 1e-12
     assert bound <= estimation_bound_any_allocation(80, 3, 8) + 1e-12
-    pair = make_study(counts, baseline=0, timing={"tr": 2.0, "soa": 2.0},
-                      analysis={"fir_window": 16.0, "high_pass_cutoff": 0, "contrasts": ["b - c"]})
+    pair = make_study(
+        counts,
+        baseline=0,
+        timing={"tr": 2.0, "soa": 2.0},
+        analysis={"fir_window": 16.0, "high_pass_cutoff": 0, "contrasts": ["b - c"]},
+    )
     ev2, _ = evaluator_for(pair, make_setup(pair), designs[0], circular=circular)
     assert ev2.score_many(np.array(designs))[1].max() <= estimation_bound_pairwise([20, 20], 8) + 1e-12
 
@@ -228,8 +250,12 @@ def test_blocks_win_detection_and_lose_estimation_as_published():
     an m-sequence sits with the random designs on detection and above them on estimation."""
     s = gf_m_sequence(3, 4)
     counts = np.bincount(s)
-    study = make_study(counts.tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0},
-                       analysis={"fir_window": 20.0, "high_pass_cutoff": 0})
+    study = make_study(
+        counts.tolist(),
+        baseline=0,
+        timing={"tr": 2.0, "soa": 2.0},
+        analysis={"fir_window": 20.0, "high_pass_cutoff": 0},
+    )
     setup = make_setup(study)
     ev, _ = evaluator_for(study, setup, s, circular=True)
     rng = np.random.default_rng(1)
@@ -255,8 +281,12 @@ def test_relabelling_conditions_keeps_symmetric_figures():
 
 def test_high_pass_shorter_than_the_block_period_destroys_block_detection():
     counts = np.array([60, 60])
-    study_slow = make_study(counts.tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 128.0})
-    study_fast = make_study(counts.tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 40.0})
+    study_slow = make_study(
+        counts.tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 128.0}
+    )
+    study_fast = make_study(
+        counts.tolist(), baseline=0, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 40.0}
+    )
     blocks = block_ordering(counts, 0, 20)  # 40 s on, 40 s off: an 80 s period
     det = []
     for st in (study_slow, study_fast):

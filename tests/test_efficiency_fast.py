@@ -15,20 +15,34 @@ from tests.conftest import make_study
 CASES = {
     "plain": dict(counts=[8, 8, 8, 8], baseline=3, timing={"tr": 2.0, "soa": 2.0, "lead_in": 4.0, "lead_out": 12.0}),
     "two runs, drift, ar1": dict(
-        counts=[6, 6, 6], baseline=2, runs=2, timing={"tr": 2.0, "soa": 3.0, "lead_out": 10.0},
+        counts=[6, 6, 6],
+        baseline=2,
+        runs=2,
+        timing={"tr": 2.0, "soa": 3.0, "lead_out": 10.0},
         analysis={"ar1": 0.35, "drift_degree": 2, "high_pass_cutoff": 60.0},
     ),
     "derivative, own durations, D": dict(
-        counts=[7, 7, 7], baseline=None, durations=[1.0, 2.5, 0.5], timing={"tr": 1.5, "soa": 3.0, "lead_out": 12.0},
+        counts=[7, 7, 7],
+        baseline=None,
+        durations=[1.0, 2.5, 0.5],
+        timing={"tr": 1.5, "soa": 3.0, "lead_out": 12.0},
         analysis={"hrf": "double-gamma-derivative", "criterion": "D", "contrasts": ["a - b", "(a + b)/2 - c"]},
     ),
     "jittered, wide FIR bins, offset": dict(
-        counts=[8, 8, 8], baseline=2, timing={"tr": 2.0, "trial_duration": 1.0, "lead_out": 14.0,
-                                              "iti": {"distribution": "uniform", "min": 0.5, "max": 3.5}},
+        counts=[8, 8, 8],
+        baseline=2,
+        timing={
+            "tr": 2.0,
+            "trial_duration": 1.0,
+            "lead_out": 14.0,
+            "iti": {"distribution": "uniform", "min": 0.5, "max": 3.5},
+        },
         analysis={"fir_step": 4.0, "fir_window": 16.0, "sample_offset": 1.0},
     ),
     "custom hrf, pairs": dict(
-        counts=[6, 6, 6, 6], baseline=None, timing={"tr": 2.0, "soa": 2.5, "lead_out": 12.0},
+        counts=[6, 6, 6, 6],
+        baseline=None,
+        timing={"tr": 2.0, "soa": 2.5, "lead_out": 12.0},
         analysis={"hrf": {"samples": [0, 0.3, 1, 0.7, 0.2, -0.1, 0], "step": 2.0}, "contrasts": "all-pairs"},
     ),
 }

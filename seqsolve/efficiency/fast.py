@@ -14,7 +14,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from scipy.linalg import solve_triangular
+from threadpoolctl import ThreadpoolController
 
 from seqsolve.efficiency.grid import Layout, fir_bins
 from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
@@ -23,23 +24,42 @@ from seqsolve.efficiency.setup import AnalysisSetup
 #: information matrices with a smaller reciprocal condition number count as singular
 RCOND = 1e-10
 
+_THREADPOOLS: ThreadpoolController | None = None
+
+
+def one_blas_thread():
+    """Context pinning BLAS to one thread: on small, many products a threaded BLAS is far slower
+    under load (measured), and processes, not threads, are how seqsolve uses both cores."""
+    global _THREADPOOLS
+    if _THREADPOOLS is None:
+        _THREADPOOLS = ThreadpoolController()  # finding the libraries is the slow part: once
+    return _THREADPOOLS.limit(limits=1)
+
 
 def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") -> tuple[np.ndarray, np.ndarray]:
     """Efficiency of each information matrix in m (B, p, p) for contrast (q, p).
 
-    Returns (efficiency (B,), singular (B,) bool); singular designs get efficiency 0.
+    Returns (efficiency (B,), singular (B,) bool); singular designs get efficiency 0. A matrix is
+    singular when a Cholesky pivot squared falls below RCOND times its diagonal entry (or the
+    factorisation fails, in which case eigenvalues decide for the whole batch).
     """
     m = np.asarray(m, dtype=float)
-    eig = np.linalg.eigvalsh(m)
-    singular = eig[:, 0] <= RCOND * np.maximum(eig[:, -1], 1e-300)
-    safe = np.where(singular[:, None, None], np.eye(m.shape[1]), m)
-    sol = np.linalg.solve(safe, np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape))
-    v = contrast @ sol  # (B, q, q)
+    try:
+        chol = np.linalg.cholesky(m)
+        pivots = np.diagonal(chol, axis1=1, axis2=2) ** 2
+        singular = (pivots <= RCOND * np.maximum(np.diagonal(m, axis1=1, axis2=2), 1e-300)).any(axis=1)
+    except np.linalg.LinAlgError:
+        eig = np.linalg.eigvalsh(m)
+        singular = eig[:, 0] <= RCOND * np.maximum(eig[:, -1], 1e-300)
+        m = np.where(singular[:, None, None], np.eye(m.shape[1]), m)
+        chol = np.linalg.cholesky(m)
+    chol = np.where(singular[:, None, None], np.eye(m.shape[1]), chol)
+    half = solve_triangular(chol, np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape), lower=True)  # L^-1 C'
     if criterion == "D":
-        sign, logdet = np.linalg.slogdet(v)
-        eff = np.where(sign > 0, np.exp(-logdet / v.shape[1]), 0.0)
+        sign, logdet = np.linalg.slogdet(np.swapaxes(half, 1, 2) @ half)
+        eff = np.where(sign > 0, np.exp(-logdet / contrast.shape[0]), 0.0)
     else:
-        eff = 1.0 / np.trace(v, axis1=1, axis2=2)
+        eff = 1.0 / np.einsum("bij,bij->b", half, half)
     return np.where(singular, 0.0, eff), singular
 
 
@@ -68,17 +88,20 @@ class _Part:
         self.modelled = modelled
 
     def design(self, codes: np.ndarray) -> np.ndarray:
-        """X for labels codes (B, N): shape (B, n_scans, p)."""
+        """X for labels codes (B, N): shape (B, n_scans, p), columns (condition, basis)."""
         b = codes.shape[0]
-        n = self.regs[0].shape[0]
-        x = np.empty((b, n, self.p))
-        for c in self.modelled:
-            pc = self.regs[self.group[c]]
-            mask = (codes == c).astype(float)  # (B, N)
-            # sum of the trial regressors of c's trials
-            xc = np.einsum("bi,nik->bnk", mask, pc, optimize=True)
-            x[:, :, self.col[c] : self.col[c] + self.nb] = xc
-        return x
+        n, n_trials = self.regs[0].shape[:2]
+        x = np.empty((b, n, len(self.modelled), self.nb))
+        for g, reg in enumerate(self.regs):
+            conds = [c for c in self.modelled if self.group[c] == g]
+            if not conds:
+                continue
+            masks = (codes[:, None, :] == np.array(conds)[None, :, None]).astype(float)  # (B, C, N)
+            flat = reg.transpose(1, 0, 2).reshape(n_trials, n * self.nb)  # (N, n * nb)
+            xg = (masks.reshape(-1, n_trials) @ flat).reshape(b, len(conds), n, self.nb)
+            for k, c in enumerate(conds):
+                x[:, :, self.col[c] // self.nb, :] = xg[:, k]
+        return x.reshape(b, n, self.p)
 
 
 class Evaluator:
@@ -95,11 +118,14 @@ class Evaluator:
     def __init__(self, setup: AnalysisSetup, layout: Layout, n_conditions: int, circular: bool = False):
         self.setup, self.layout, self.k = setup, layout, n_conditions
         self.circular = circular
-        with threadpool_limits(1):
+        with one_blas_thread():
             nuis = block_nuisance(layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
             self.q = residual_basis(whiten(nuis, setup.ar1, layout.run_lengths))
             self.det = self._detection_part()
             self.fir_scan = self._fir_scans()  # (N, lags): volume index of each trial's lag, -1 outside
+            lagged = self.fir_scan * setup.fir_lags + np.arange(setup.fir_lags)
+            lagged = lagged[self.fir_scan >= 0]
+            self.fir_unique = len(np.unique(lagged)) == len(lagged)
             self.est = _Part(
                 [self._filter(self._fir_raw())], np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions
             )
@@ -208,140 +234,201 @@ class Evaluator:
     def information(self, codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(detection, estimation) information matrices of one ordering (all runs concatenated)."""
         codes = np.asarray(codes)[None]
-        with threadpool_limits(1):
+        with one_blas_thread():
             xd, xe = self.det.design(codes)[0], self.est.design(codes)[0]
         return xd.T @ xd, xe.T @ xe
 
-    def score_many(self, codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Detection and estimation efficiency of many orderings, codes (B, N) -> two arrays (B,)."""
+    def score_many(
+        self, codes: np.ndarray, detection: bool = True, estimation: bool = True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Detection and estimation efficiency of many orderings, codes (B, N) -> two arrays (B,).
+
+        A part not asked for comes back as NaN.
+        """
         codes = np.atleast_2d(codes)
-        with threadpool_limits(1):
-            xd = self.det.design(codes)
-            md = np.einsum("bnp,bnq->bpq", xd, xd, optimize=True)
-            me = self._fir_information(codes)
-            det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
-            est, _ = batch_efficiency(me, self.c_est, self.setup.criterion)
+        det = est = np.full(codes.shape[0], np.nan)
+        with one_blas_thread():
+            if detection:
+                xd = self.det.design(codes)
+                md = np.swapaxes(xd, 1, 2) @ xd
+                det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
+            if estimation:
+                est, _ = batch_efficiency(self._fir_information(codes), self.c_est, self.setup.criterion)
         return det, est
 
     def _fir_information(self, codes: np.ndarray) -> np.ndarray:
-        """FIR information for many orderings from Omega, without forming X: M = S' Omega S with S 0/1."""
-        b = codes.shape[0]
-        p = self.est.p
-        # raw 0/1 design as (B, n_scans, p) built by scatter, then X' Omega X
-        raw = np.zeros((b, self.layout.n_scans, p))
-        cols = self.est.col[codes]  # (B, N)
-        ti, tj = np.nonzero(self.fir_scan >= 0)
+        """FIR information for many orderings: build the 0/1 design by scatter, then filter it.
+
+        M = (WX)'(WX) - (Q'WX)'(Q'WX), with W the bidiagonal AR(1) filter: no dense n x n product.
+        """
         if self.setup.fir_step > self.setup.tr + 1e-9:
             xe = self.est.design(codes)
             return np.einsum("bnp,bnq->bpq", xe, xe, optimize=True)
-        for bb in range(b):
-            keep = cols[bb, ti] >= 0
-            np.add.at(raw[bb], (self.fir_scan[ti[keep], tj[keep]], cols[bb, ti[keep]] + tj[keep]), 1.0)
-        om = raw.transpose(0, 2, 1) @ self.omega  # (B, p, n)
-        return om @ raw
+        b = codes.shape[0]
+        raw = np.zeros((b, self.layout.n_scans, self.est.p))
+        ti, tj = np.nonzero(self.fir_scan >= 0)
+        cols = self.est.col[codes][:, ti]  # (B, hits)
+        keep = cols >= 0
+        bb = np.broadcast_to(np.arange(b)[:, None], cols.shape)[keep]
+        scan = np.broadcast_to(self.fir_scan[ti, tj], cols.shape)[keep]
+        if self.fir_unique:
+            raw[bb, scan, (cols + tj)[keep]] = 1.0
+        else:  # two trials of one condition share a volume at some lag: count both
+            np.add.at(raw, (bb, scan, (cols + tj)[keep]), 1.0)
+        xw = whiten(np.moveaxis(raw, 1, 0), self.setup.ar1, self.layout.run_lengths)  # (n, B, p)
+        xw = np.moveaxis(xw, 0, 1)
+        proj = np.einsum("nq,bnp->bqp", self.q, xw, optimize=True)
+        return np.swapaxes(xw, 1, 2) @ xw - np.swapaxes(proj, 1, 2) @ proj
 
     def score(self, codes: np.ndarray) -> tuple[float, float]:
         det, est = self.score_many(np.asarray(codes)[None])
         return float(det[0]), float(est[0])
 
-    def neighbours(self, codes: np.ndarray, swaps: bool = True) -> Neighbours:
-        """Scores of every single change and every swap of differently labelled trials."""
+    def neighbours(
+        self, codes: np.ndarray, swaps: bool = True, detection: bool = True, estimation: bool = True
+    ) -> Neighbours:
+        """Scores of every single change and every swap of differently labelled trials.
+
+        A part not asked for comes back as NaN.
+        """
         codes = np.asarray(codes)
-        with threadpool_limits(1):
-            cd = self._changes(self.det, codes, self.c_det)
-            ce = self._changes(self.est, codes, self.c_est)
-            if swaps:
-                i, j = np.triu_indices(len(codes), 1)
-                keep = codes[i] != codes[j]
-                pairs = np.column_stack([i[keep], j[keep]])
-                sd = self._swaps(self.det, codes, pairs, self.c_det, fir=False)
-                se = self._swaps(self.est, codes, pairs, self.c_est, fir=True)
-            else:
-                pairs, sd, se = np.zeros((0, 2), dtype=int), np.zeros(0), np.zeros(0)
+        i, j = np.triu_indices(len(codes), 1) if swaps else (np.zeros(0, int), np.zeros(0, int))
+        keep = codes[i] != codes[j]
+        pairs = np.column_stack([i[keep], j[keep]])
+        nan_changes = np.full((len(codes), self.k), np.nan)
+        nan_swaps = np.full(len(pairs), np.nan)
+        with one_blas_thread():
+            cd = self._changes(self.det, codes, self.c_det) if detection else nan_changes
+            ce = self._changes(self.est, codes, self.c_est) if estimation else nan_changes
+            sd = self._swaps(self.det, codes, pairs, self.c_det, fir=False) if detection else nan_swaps
+            se = self._swaps(self.est, codes, pairs, self.c_est, fir=True) if estimation else nan_swaps
         return Neighbours(cd, ce, pairs, sd, se)
 
     def _changes(self, part: _Part, codes: np.ndarray, contrast: np.ndarray) -> np.ndarray:
         n_trials = len(codes)
-        x = part.design(codes[None])[0]  # (n, p)
-        m = x.T @ x
-        nb = part.nb
-        # X'P for each group, and each trial's own products per pair of groups
-        xp = [np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs]  # (N, p, nb)
-        own = {
-            (g, h): np.einsum("nib,nic->ibc", part.regs[g], part.regs[h], optimize=True)
-            for g in range(len(part.regs))
-            for h in range(len(part.regs))
-        }
         trial = np.repeat(np.arange(n_trials), self.k)
         new = np.tile(np.arange(self.k), n_trials)
-        old = codes[trial]
-        mm = np.broadcast_to(m, (len(trial),) + m.shape).copy()
-        b = np.arange(len(trial))[:, None, None]
-        rows = np.arange(part.p)[None, :, None]
-        for cond, sign in ((new, 1.0), (old, -1.0)):
-            col0 = part.col[cond]
-            has = col0 >= 0
-            g = part.group[cond]
-            a = np.stack([xp[gg][tt] for gg, tt in zip(g, trial)]) if len(part.regs) > 1 else xp[0][trial]
-            a = a * has[:, None, None] * sign  # (B, p, nb)
-            cols = (np.maximum(col0, 0)[:, None] + np.arange(nb)[None, :])[:, None, :]
-            # X'delta and its transpose
-            np.add.at(mm, (b, rows, cols), a)
-            np.add.at(mm, (b, cols.transpose(0, 2, 1), rows.transpose(0, 2, 1)), a.transpose(0, 2, 1))
-        # delta'delta
-        for c1, s1 in ((new, 1.0), (old, -1.0)):
-            for c2, s2 in ((new, 1.0), (old, -1.0)):
-                has = (part.col[c1] >= 0) & (part.col[c2] >= 0)
-                blk = np.stack([own[(part.group[u], part.group[v])][t] for u, v, t in zip(c1, c2, trial)])
-                blk = blk * (s1 * s2) * has[:, None, None]
-                r1 = (np.maximum(part.col[c1], 0)[:, None] + np.arange(nb))[:, :, None]
-                r2 = (np.maximum(part.col[c2], 0)[:, None] + np.arange(nb))[:, None, :]
-                np.add.at(mm, (b, r1, r2), blk)
-        eff, _ = batch_efficiency(mm, contrast, self.setup.criterion)
-        return eff.reshape(n_trials, self.k)
+        terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
+        return self._score_terms(part, codes, terms, contrast, fir=False).reshape(n_trials, self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
-        """Swap trials i and j: condition ci gains trial j and loses i, cj the reverse."""
+        """Swap trials i and j: condition c_j gains trial i and loses j, c_i the reverse."""
         if len(pairs) == 0:
             return np.zeros(0)
-        x = part.design(codes[None])[0]
-        m = x.T @ x
-        nb = part.nb
-        xp = [np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs]
         i, j = pairs[:, 0], pairs[:, 1]
         ci, cj = codes[i], codes[j]
-        mm = np.broadcast_to(m, (len(pairs),) + m.shape).copy()
-        b = np.arange(len(pairs))[:, None, None]
-        rows = np.arange(part.p)[None, :, None]
-        # delta in block of cj: p_i - p_j (regressors of cj's group); in block of ci: p_j - p_i
-        blocks = ((cj, i, j), (ci, j, i))
-        for cond, gain, lose in blocks:
+        terms = [(cj, i, 1.0), (cj, j, -1.0), (ci, j, 1.0), (ci, i, -1.0)]
+        return self._score_terms(part, codes, terms, contrast, fir=fir)
+
+    def _score_terms(self, part: _Part, codes: np.ndarray, terms, contrast: np.ndarray, fir: bool) -> np.ndarray:
+        """Scores of candidates given as column-block updates, in chunks that stay in cache."""
+        n_cand = len(terms[0][0])
+        chunk = max(1, 2_000_000 // (part.p * part.p))
+        x = part.design(codes[None])[0]
+        m = x.T @ x
+        xp = np.stack([np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs])  # (G, N, p, nb)
+        if part.nb == 1 and self.setup.criterion == "A":
+            fast = self._woodbury(part, m, xp, terms, contrast, fir)
+            if fast is not None:
+                return fast
+        out = np.empty(n_cand)
+        for lo in range(0, n_cand, chunk):
+            sl = slice(lo, lo + chunk)
+            sub = [(c[sl], t[sl], sg) for c, t, sg in terms]
+            out[sl] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, self.setup.criterion)[0]
+        return out
+
+    def _woodbury(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray, fir: bool):
+        """One-regressor-per-condition case: each candidate changes M by U S U' with U of 4 columns
+        (two unit vectors and two X'd vectors), so its trace(C M'^-1 C') follows from 4 x 4 algebra.
+        Candidates whose update nearly cancels M's rank are recomputed the plain way; None if M itself
+        is singular."""
+        try:
+            chol = np.linalg.cholesky(m)
+        except np.linalg.LinAlgError:
+            return None
+        if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
+            return None
+        minv = np.linalg.inv(m)
+        h = minv @ contrast.T @ contrast @ minv
+        t0 = float(np.trace(contrast @ minv @ contrast.T))
+        # merge the terms into two blocks: (condition a, vector va) and (condition b, vector vb)
+        blocks = _two_blocks(terms)
+        n_cand = len(terms[0][0])
+        cols, avec, d_terms = [], [], []
+        for cond, members in blocks:
             has = part.col[cond] >= 0
-            g = part.group[cond]
-            a = (
-                np.stack([xp[gg][t1] - xp[gg][t2] for gg, t1, t2 in zip(g, gain, lose)])
-                if len(part.regs) > 1
-                else xp[0][gain] - xp[0][lose]
-            )
-            a = a * has[:, None, None]
-            cols = (np.maximum(part.col[cond], 0)[:, None] + np.arange(nb)[None, :])[:, None, :]
-            np.add.at(mm, (b, rows, cols), a)
-            np.add.at(mm, (b, cols.transpose(0, 2, 1), rows.transpose(0, 2, 1)), a.transpose(0, 2, 1))
-        for c1, g1, l1 in blocks:
-            for c2, g2, l2 in blocks:
-                has = (part.col[c1] >= 0) & (part.col[c2] >= 0)
-                blk = (
-                    self._cross(part, c1, c2, g1, g2, fir)
-                    - self._cross(part, c1, c2, g1, l2, fir)
-                    - self._cross(part, c1, c2, l1, g2, fir)
-                    + self._cross(part, c1, c2, l1, l2, fir)
-                )
-                blk = blk * has[:, None, None]
-                r1 = (np.maximum(part.col[c1], 0)[:, None] + np.arange(nb))[:, :, None]
-                r2 = (np.maximum(part.col[c2], 0)[:, None] + np.arange(nb))[:, None, :]
-                np.add.at(mm, (b, r1, r2), blk)
-        eff, _ = batch_efficiency(mm, contrast, self.setup.criterion)
+            a = sum(sg * xp[part.group[cond], t][:, :, 0] for t, sg in members) * has[:, None]  # (B, p)
+            cols.append((np.maximum(part.col[cond], 0), has))
+            avec.append(a)
+        dm = np.zeros((n_cand, 2, 2))
+        for x_, (cond1, mem1) in enumerate(blocks):
+            for y_, (cond2, mem2) in enumerate(blocks):
+                has = (part.col[cond1] >= 0) & (part.col[cond2] >= 0)
+                for t1, s1 in mem1:
+                    for t2, s2 in mem2:
+                        dm[:, x_, y_] += s1 * s2 * self._cross(part, cond1, cond2, t1, t2, fir)[:, 0, 0] * has
+
+        # U = [e_a, e_b, A_a, A_b]; the products U' Minv U and U' H U, entry by entry
+        def unit_prod(mat, c1, c2):
+            return mat[c1[0], c2[0]] * c1[1] * c2[1]
+
+        def mixed(mat_a, c1):  # e_c' (mat a) for each candidate
+            return mat_a[np.arange(n_cand), c1[0]] * c1[1]
+
+        us = []
+        for mat in (minv, h):
+            ma = [a @ mat for a in avec]  # rows: a' mat (mat symmetric)
+            g = np.empty((n_cand, 4, 4))
+            for x_ in range(2):
+                for y_ in range(2):
+                    g[:, x_, y_] = unit_prod(mat, cols[x_], cols[y_])
+                    g[:, x_, 2 + y_] = mixed(ma[y_], cols[x_])
+                    g[:, 2 + y_, x_] = g[:, x_, 2 + y_]
+                    g[:, 2 + x_, 2 + y_] = np.einsum("bp,bp->b", ma[x_], avec[y_])
+            us.append(g)
+        umu, uhu = us
+        s_inv = np.zeros((n_cand, 4, 4))
+        s_inv[:, 0:2, 2:4] = np.eye(2)
+        s_inv[:, 2:4, 0:2] = np.eye(2)
+        s_inv[:, 2:4, 2:4] = -dm
+        kmat = s_inv + umu
+        det_k = np.linalg.det(kmat)
+        ok = np.abs(det_k) > 1e-8
+        safe = np.where(ok[:, None, None], kmat, np.eye(4))
+        trace = t0 - np.einsum("bii->b", np.linalg.solve(safe, uhu))
+        eff = np.where(ok, 1.0 / trace, 0.0)
+        if not ok.all():
+            bad = np.flatnonzero(~ok)
+            sub = [(c[bad], t[bad], sg) for c, t, sg in terms]
+            eff[bad] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, "A")[0]
         return eff
+
+    def _updated(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, fir: bool) -> np.ndarray:
+        """Information matrices after adding sign * (trial's regressor) to a condition's column block,
+        for each (condition, trial, sign) term, one candidate per entry.
+
+        With V selecting the touched columns, A = X'd the matching products and D = d'd:
+        M' = (X + D)'(X + D) = M + A V' + V A' + V D V', all as batched products.
+        """
+        nb, n_cand = part.nb, len(terms[0][0])
+        width = nb * len(terms)
+        sel = np.zeros((n_cand, part.p, width))
+        a = np.zeros((n_cand, part.p, width))
+        idx = np.arange(n_cand)
+        for t, (cond, trial, sign) in enumerate(terms):
+            has = part.col[cond] >= 0
+            for j in range(nb):
+                sel[idx[has], part.col[cond][has] + j, t * nb + j] = 1.0
+            a[:, :, t * nb : (t + 1) * nb] = xp[part.group[cond], trial] * (sign * has)[:, None, None]
+        d = np.zeros((n_cand, width, width))
+        for t1, (c1, tr1, s1) in enumerate(terms):
+            for t2, (c2, tr2, s2) in enumerate(terms):
+                d[:, t1 * nb : (t1 + 1) * nb, t2 * nb : (t2 + 1) * nb] = (
+                    s1 * s2 * self._cross(part, c1, c2, tr1, tr2, fir)
+                )
+        av = a @ np.swapaxes(sel, 1, 2)
+        return m + av + np.swapaxes(av, 1, 2) + sel @ d @ np.swapaxes(sel, 1, 2)
 
     def _cross(self, part: _Part, c1, c2, t1, t2, fir: bool) -> np.ndarray:
         """Products of trial t1's regressor (group of c1) with trial t2's (group of c2): (B, nb, nb)."""
@@ -349,12 +436,34 @@ class Evaluator:
             s1, s2 = self.fir_scan[t1], self.fir_scan[t2]  # (B, lags)
             vals = self.omega[np.maximum(s1, 0)[:, :, None], np.maximum(s2, 0)[:, None, :]]
             return vals * ((s1 >= 0)[:, :, None] & (s2 >= 0)[:, None, :])
-        out = np.empty((len(t1), part.nb, part.nb))
-        for g in range(len(part.regs)):
-            for h in range(len(part.regs)):
-                sel = (part.group[c1] == g) & (part.group[c2] == h)
-                if sel.any():
-                    out[sel] = np.einsum(
-                        "nbx,nby->bxy", part.regs[g][:, t1[sel]], part.regs[h][:, t2[sel]], optimize=True
-                    )
-        return out
+        if np.array_equal(t1, t2):
+            return self._own(part)[part.group[c1], part.group[c2], t1]
+        gram = self._gram(part)
+        return gram[part.group[c1], part.group[c2], t1, :, t2, :]
+
+    def _gram(self, part: _Part) -> np.ndarray:
+        """All trials' regressor products between groups: (G, G, N, nb, N, nb), computed once."""
+        if getattr(part, "gram", None) is None:
+            regs = part.regs
+            part.gram = np.array([[np.einsum("nib,njc->ibjc", g, h, optimize=True) for h in regs] for g in regs])
+        return part.gram
+
+    def _own(self, part: _Part) -> np.ndarray:
+        """Each trial's regressor products between groups: (G, G, N, nb, nb), computed once."""
+        if getattr(part, "own", None) is None:
+            regs = part.regs
+            part.own = np.array([[np.einsum("nib,nic->ibc", g, h, optimize=True) for h in regs] for g in regs])
+        return part.own
+
+
+def _two_blocks(terms):
+    """Group (condition, trial, sign) terms into the two condition blocks they touch.
+
+    Changes: (new, +), (old, -); swaps: (c_j, +i), (c_j, -j), (c_i, +j), (c_i, -i).
+    """
+    if len(terms) == 2:
+        return [(terms[0][0], [(terms[0][1], terms[0][2])]), (terms[1][0], [(terms[1][1], terms[1][2])])]
+    return [
+        (terms[0][0], [(terms[0][1], terms[0][2]), (terms[1][1], terms[1][2])]),
+        (terms[2][0], [(terms[2][1], terms[2][2]), (terms[3][1], terms[3][2])]),
+    ]

@@ -58,6 +58,22 @@ def design_study(
     return designs
 
 
+def efficiency_summary(study: Study, design: Design) -> dict:
+    """Detection and estimation per run and for all runs (no reference designs: kept quick)."""
+    from seqsolve.score import score_design
+
+    rows = score_design(study, design.label, design.runs, design.schedules, with_references=False)
+    return {
+        r.run: {
+            "detection": round(r.detection, 9),
+            "estimation": round(r.estimation, 9),
+            "counterbalance_max": round(r.counterbalance_max, 9),
+            "entropy_bits": round(r.entropy_bits, 9),
+        }
+        for r in rows
+    }
+
+
 def manifest(study: Study, designs: list[Design]) -> dict:
     """What made these outputs: versions, spec hash, seeds, rule summary per participant."""
     rules = [
@@ -71,6 +87,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
         "conditions": {n: int(c) for n, c in zip(study.names, study.facts.counts[0])},
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
+        "analysis": study.spec.analysis.model_dump(mode="json"),
         "participants": [
             {
                 "label": d.label,
@@ -78,6 +95,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
                 "method": d.method,
                 "rules_passed": len(rules),
                 "violations": 0,
+                "metrics": efficiency_summary(study, d),
                 "runs": [
                     {"run": r + 1, "trials": int(len(s.codes)), "volumes": s.n_volumes, "seconds": round(s.length, 6)}
                     for r, s in enumerate(d.schedules)

@@ -148,15 +148,36 @@ SPECS = [
     ),
     pytest.param(BASE.replace("[timing]", "[timing\n"), ["TOML syntax error", "line"], id="toml-syntax"),
     pytest.param(BASE.replace("tr = 2.0\n", ""), ["timing.tr", "missing required key"], id="missing-tr"),
+    pytest.param(
+        BASE + "\n[analysis]\ncontrasts = ['gain - lost']\n",
+        ["analysis.contrasts[1]", "'lost'", "modelled: gain, loss"],
+        id="contrast-name",
+    ),
+    pytest.param(
+        BASE + "\n[analysis]\ncontrasts = ['gain * loss']\n", ["analysis.contrasts[1]", "linear"], id="contrast-product"
+    ),
+    pytest.param(
+        BASE + "\n[analysis]\ncontrasts = ['gain - (loss']\n",
+        ["analysis.contrasts[1]", "missing ')'"],
+        id="contrast-paren",
+    ),
+    pytest.param(
+        BASE + "\n[analysis]\ncontrasts = ['gain; loss']\n",
+        ["analysis.contrasts[1]", "unexpected ';'"],
+        id="contrast-symbol",
+    ),
+    pytest.param(BASE + "\n[analysis]\nar1 = 1.5\n", ["analysis.ar1", "less than 1"], id="analysis-ar1"),
 ]
 
 
 @pytest.mark.parametrize("text, expected", SPECS)
-@pytest.mark.parametrize("command", ["check", "generate"])
+@pytest.mark.parametrize("command", ["check", "generate", "score"])
 def test_broken_spec_gives_clear_error(tmp_path, text, expected, command):
     spec = tmp_path / "study.toml"
     spec.write_text(text)
-    args = [command, str(spec)] + (["-o", str(tmp_path / "out")] if command == "generate" else [])
+    args = [command, str(spec)] + {"generate": ["-o", str(tmp_path / "out")], "score": [str(tmp_path / "o.csv")]}.get(
+        command, []
+    )
     result = runner.invoke(app, args)
     assert result.exit_code == 2, result.output
     assert "Traceback" not in result.output

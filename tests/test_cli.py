@@ -114,3 +114,27 @@ def test_help_of_each_command_has_an_example():
     for cmd in ("generate", "audit", "check"):
         result = run(cmd, "--help")
         assert result.exit_code == 0 and "Example:" in result.output
+
+
+def test_score_prints_a_table_and_json(generated):
+    result = run("score", EXAMPLE, generated / "orderings.csv", "--no-references")
+    assert result.exit_code == 0, result.output
+    assert "detection" in result.output and "estimation" in result.output
+    assert result.output.count(" all ") >= 6  # every participant's all-runs row
+    as_json = run(
+        "score",
+        EXAMPLE,
+        generated / "sub-01" / "sub-01_task-rewardcue_run-1_events.tsv",
+        generated / "sub-01" / "sub-01_task-rewardcue_run-2_events.tsv",
+        generated / "sub-01" / "sub-01_task-rewardcue_run-3_events.tsv",
+        "--json",
+    )
+    assert as_json.exit_code == 0, as_json.output
+    rows = json.loads(as_json.output)
+    assert {r["run"] for r in rows} == {"1", "2", "3", "all"}
+    assert set(rows[0]["per_contrast"]) == {"win - neutral", "avoid - neutral", "(win + avoid)/2 - neutral"}
+    assert 0 < rows[0]["detection_vs_block"] and 0 < rows[0]["estimation_vs_random"]
+    # the manifest's figures are the same computation as score's
+    manifest = json.loads((generated / "manifest.json").read_text())
+    first = manifest["participants"][0]["metrics"]["1"]
+    assert first["detection"] == pytest.approx(rows[0]["detection"], rel=1e-8)

@@ -28,3 +28,5 @@ def test_example_runs(spec, tmp_path):
     assert result.exit_code == 0, result.output
     audit = runner.invoke(app, ["audit", str(spec), str(out / "orderings.csv")])
     assert audit.exit_code == 0, audit.output
+    score = runner.invoke(app, ["score", str(spec), str(out / "orderings.csv"), "--no-references"])
+    assert score.exit_code == 0, score.output

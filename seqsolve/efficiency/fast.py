@@ -355,7 +355,7 @@ class Evaluator:
         # merge the terms into two blocks: (condition a, vector va) and (condition b, vector vb)
         blocks = _two_blocks(terms)
         n_cand = len(terms[0][0])
-        cols, avec, d_terms = [], [], []
+        cols, avec = [], []
         for cond, members in blocks:
             has = part.col[cond] >= 0
             a = sum(sg * xp[part.group[cond], t][:, :, 0] for t, sg in members) * has[:, None]  # (B, p)

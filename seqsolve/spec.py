@@ -87,21 +87,9 @@ class FixedGap(Strict):
     value: float = Field(ge=0, description="Seconds.")
 
 
-class UniformGap(Strict):
-    distribution: Literal["uniform"]
-    min: float = Field(ge=0)
-    max: float = Field(gt=0)
+class _Bounded(Strict):
+    """Gaps between min and max seconds."""
 
-    @model_validator(mode="after")
-    def _order(self):
-        if self.max <= self.min:
-            raise ValueError("'max' must be greater than 'min'")
-        return self
-
-
-class ExponentialGap(Strict):
-    distribution: Literal["exponential"]
-    mean: float = Field(gt=0, description="Mean of the exponential before truncation, in seconds.")
     min: float = Field(default=0.0, ge=0)
     max: float = Field(gt=0)
 
@@ -110,6 +98,16 @@ class ExponentialGap(Strict):
         if self.max <= self.min:
             raise ValueError("'max' must be greater than 'min'")
         return self
+
+
+class UniformGap(_Bounded):
+    distribution: Literal["uniform"]
+    min: float = Field(ge=0)
+
+
+class ExponentialGap(_Bounded):
+    distribution: Literal["exponential"]
+    mean: float = Field(gt=0, description="Mean of the exponential before truncation, in seconds.")
 
 
 class ChoiceGap(Strict):

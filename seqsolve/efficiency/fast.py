@@ -180,36 +180,11 @@ class Evaluator:
         regs = [self._filter(self._responses(L)) for L in groups]
         return _Part(regs, group, self.setup.modelled, self.k)
 
-    def _fir_scans(self) -> np.ndarray:
+    def _fir_hits(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(volume, trial, lag) of every FIR bin that a volume falls in, the reference's rule."""
         lay = self.layout
         edges = fir_bins(self.setup)
-        out = np.full((lay.n_trials, self.setup.fir_lags), -1, dtype=np.int64)
-        row = 0
-        for r, scans in enumerate(lay.scan_idx):
-            for i in np.flatnonzero(lay.run_of == r):
-                d = scans - lay.onset_idx[i]
-                if self.circular:
-                    d = d % lay.run_fine[r]
-                lag = np.searchsorted(edges, d, side="right") - 1
-                for v in np.flatnonzero((d >= 0) & (lag < self.setup.fir_lags)):
-                    out[i, lag[v]] = row + v  # one volume per lag when the bin is one TR wide
-            row += len(scans)
-        return out
-
-    def _fir_raw(self) -> np.ndarray:
-        lay = self.layout
-        raw = np.zeros((lay.n_scans, lay.n_trials, self.setup.fir_lags))
-        i, j = np.nonzero(self.fir_scan >= 0)
-        raw[self.fir_scan[i, j], i, j] = 1.0
-        if self.setup.fir_step > self.setup.tr + 1e-9:
-            # bins wider than a TR hold several volumes: count them with the reference's rule
-            raw = self._fir_raw_wide()
-        return raw
-
-    def _fir_raw_wide(self) -> np.ndarray:
-        lay = self.layout
-        edges = fir_bins(self.setup)
-        raw = np.zeros((lay.n_scans, lay.n_trials, self.setup.fir_lags))
+        vols, trials, lags = [], [], []
         row = 0
         for r, scans in enumerate(lay.scan_idx):
             for i in np.flatnonzero(lay.run_of == r):
@@ -218,8 +193,24 @@ class Evaluator:
                     d = d % lay.run_fine[r]
                 lag = np.searchsorted(edges, d, side="right") - 1
                 hit = np.flatnonzero((d >= 0) & (lag < self.setup.fir_lags))
-                raw[row + hit, i, lag[hit]] += 1.0
+                vols.append(row + hit)
+                trials.append(np.full(hit.size, i))
+                lags.append(lag[hit])
             row += len(scans)
+        return tuple(np.concatenate(x).astype(np.int64) if x else np.zeros(0, np.int64) for x in (vols, trials, lags))
+
+    def _fir_scans(self) -> np.ndarray:
+        """(N, lags): the volume in each trial's lag bin, -1 outside the run (bins of one TR)."""
+        out = np.full((self.layout.n_trials, self.setup.fir_lags), -1, dtype=np.int64)
+        vol, trial, lag = self._fir_hits()
+        out[trial, lag] = vol  # one volume per lag when the bin is one TR wide
+        return out
+
+    def _fir_raw(self) -> np.ndarray:
+        """Unfiltered 0/1 FIR regressors (n_scans, N, lags); wide bins count each volume they hold."""
+        raw = np.zeros((self.layout.n_scans, self.layout.n_trials, self.setup.fir_lags))
+        vol, trial, lag = self._fir_hits()
+        np.add.at(raw, (vol, trial, lag), 1.0)
         return raw
 
     def _omega(self) -> np.ndarray:

@@ -298,3 +298,14 @@ def test_every_rule_kind_has_an_invalid_example_here():
     ids = {p.id for p in SPECS}
     for kind in RULE_KINDS:
         assert any(i.startswith(kind) for i in ids), f"add a broken-spec row for rule kind {kind}"
+
+
+def test_ordering_for_another_spec_is_named_as_such(tmp_path):
+    spec = tmp_path / "study.toml"
+    spec.write_text(BASE)
+    f = tmp_path / "o.csv"
+    f.write_text(CSV_HEAD + "".join(f"01,1,{p},{c}\n" for p, c in enumerate(["up", "down"] * 6, start=1)))
+    result = runner.invoke(app, ["audit", str(spec), str(f)])
+    assert result.exit_code == 2
+    assert "line 2 (and 5 more line(s)): unknown condition 'up'" in result.output
+    assert "is this the spec the ordering was made for?" in result.output

@@ -102,16 +102,38 @@ def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[
 def _code(study: Study, name: str, where: str, problems: list[Problem]) -> int | None:
     if name in study.names:
         return study.names.index(name)
+    for i, p in enumerate(problems):
+        if isinstance(p, _Unknown) and p.name == name:
+            problems[i] = _Unknown(p.where, p.message, name, p.more + 1)
+            return None
     close = difflib.get_close_matches(name, study.names, n=1)
     hint = f" (did you mean '{close[0]}'?)" if close else ""
     problems.append(
-        Problem(where, f"unknown condition '{name}'{hint}; the spec's conditions: {', '.join(study.names)}")
+        _Unknown(where, f"unknown condition '{name}'{hint}; the spec's conditions: {', '.join(study.names)}", name)
     )
     return None
 
 
+class _Unknown(Problem):
+    """An unknown condition name, reported once with the count of further lines that use it."""
+
+    def __init__(self, where: str, message: str, name: str, more: int = 0):
+        super().__init__(where if not more else f"{where.split(' (')[0]} (and {more} more line(s))", message)
+        object.__setattr__(self, "name", name)
+        object.__setattr__(self, "more", more)
+
+
+def _wrong_spec_hint(study: Study, problems: list[Problem], known: int) -> list[Problem]:
+    if problems and known == 0 and all(isinstance(p, _Unknown) for p in problems):
+        problems.append(
+            Problem("", "no condition in this file is in the spec: is this the spec the ordering was made for?")
+        )
+    return problems
+
+
 def _read_csv(study: Study, path: Path, trials: dict, onsets: dict) -> None:
     problems: list[Problem] = []
+    found = 0
     with path.open(newline="", encoding="utf-8-sig") as fh:
         reader = csv.DictReader(fh)
         missing = [c for c in ORDERING_COLUMNS[:4] if c not in (reader.fieldnames or [])]
@@ -138,6 +160,7 @@ def _read_csv(study: Study, path: Path, trials: dict, onsets: dict) -> None:
                 problems.append(Problem(where, "run and position count from 1"))
                 continue
             code = _code(study, (row["condition"] or "").strip(), where, problems)
+            found += code is not None
             label = (row["participant"] or "").strip()
             if not label:
                 problems.append(Problem(where, "empty participant"))
@@ -163,7 +186,7 @@ def _read_csv(study: Study, path: Path, trials: dict, onsets: dict) -> None:
                     Problem(f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ...")
                 )
     if problems:
-        raise OrderingFileError(str(path), problems)
+        raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
 
 
 _BIDS = re.compile(r"sub-(?P<sub>[A-Za-z0-9]+)_.*?(?:run-(?P<run>\d+)_)?events\.tsv$")
@@ -177,6 +200,7 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[fl
         )
     label, run = m["sub"], int(m["run"] or 1)
     problems: list[Problem] = []
+    found = 0
     rows = []
     with path.open(newline="", encoding="utf-8-sig") as fh:
         reader = csv.DictReader(fh, delimiter="\t")
@@ -198,10 +222,11 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[fl
                 problems.append(Problem(f"line {line}", f"onset must be a number of seconds; got {row['onset']!r}"))
                 continue
             code = _code(study, (row["trial_type"] or "").strip(), f"line {line}", problems)
+            found += code is not None
             if code is not None:
                 rows.append((onset, code))
     if problems:
-        raise OrderingFileError(str(path), problems)
+        raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
     rows.sort()
     codes = [c for _, c in rows]
     base = study.facts.baseline

@@ -372,4 +372,4 @@ def check_study(study: Study, options: SolveOptions | None = None) -> CheckResul
     return CheckResult(True, choose_method(study, options), None, time.perf_counter() - t0)
 
 
-__all__ = ["Rule", "SolveOptions", "check_study", "explain", "generate_orderings"]
+__all__ = ["SolveOptions", "check_study", "explain", "generate_orderings"]

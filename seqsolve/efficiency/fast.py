@@ -54,7 +54,9 @@ def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") 
         m = np.where(singular[:, None, None], np.eye(m.shape[1]), m)
         chol = np.linalg.cholesky(m)
     chol = np.where(singular[:, None, None], np.eye(m.shape[1]), chol)
-    half = solve_triangular(chol, np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape), lower=True)  # L^-1 C'
+    half = solve_triangular(
+        chol, np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape), lower=True, check_finite=False
+    )  # L^-1 C'
     if criterion == "D":
         sign, logdet = np.linalg.slogdet(np.swapaxes(half, 1, 2) @ half)
         eff = np.where(sign > 0, np.exp(-logdet / contrast.shape[0]), 0.0)
@@ -399,27 +401,34 @@ class Evaluator:
         """Information matrices after adding sign * (trial's regressor) to a condition's column block,
         for each (condition, trial, sign) term, one candidate per entry.
 
-        With V selecting the touched columns, A = X'd the matching products and D = d'd:
-        M' = (X + D)'(X + D) = M + A V' + V A' + V D V', all as batched products.
+        With A = X'd and D = d'd for the touched blocks: M' = (X + d)'(X + d) = M + A + A' + D, added
+        block by block. Candidates are grouped by the conditions they touch, so every addition is a
+        plain slice of the same columns.
         """
         nb, n_cand = part.nb, len(terms[0][0])
-        width = nb * len(terms)
-        sel = np.zeros((n_cand, part.p, width))
-        a = np.zeros((n_cand, part.p, width))
-        idx = np.arange(n_cand)
-        for t, (cond, trial, sign) in enumerate(terms):
-            has = part.col[cond] >= 0
-            for j in range(nb):
-                sel[idx[has], part.col[cond][has] + j, t * nb + j] = 1.0
-            a[:, :, t * nb : (t + 1) * nb] = xp[part.group[cond], trial] * (sign * has)[:, None, None]
-        d = np.zeros((n_cand, width, width))
-        for t1, (c1, tr1, s1) in enumerate(terms):
-            for t2, (c2, tr2, s2) in enumerate(terms):
-                d[:, t1 * nb : (t1 + 1) * nb, t2 * nb : (t2 + 1) * nb] = (
-                    s1 * s2 * self._cross(part, c1, c2, tr1, tr2, fir)
-                )
-        av = a @ np.swapaxes(sel, 1, 2)
-        return m + av + np.swapaxes(av, 1, 2) + sel @ d @ np.swapaxes(sel, 1, 2)
+        a = [xp[part.group[cond], trial] * sign for cond, trial, sign in terms]  # each (B, p, nb)
+        d = {
+            (t1, t2): s1 * s2 * self._cross(part, c1, c2, tr1, tr2, fir)
+            for t1, (c1, tr1, s1) in enumerate(terms)
+            for t2, (c2, tr2, s2) in enumerate(terms)
+        }
+        conds = np.stack([cond for cond, _, _ in terms], axis=1)  # (B, n_terms)
+        mm = np.broadcast_to(m, (n_cand,) + m.shape).copy()
+        keys, group = np.unique(conds, axis=0, return_inverse=True)
+        for g, key in enumerate(keys):
+            idx = np.flatnonzero(group.ravel() == g)
+            sub = mm[idx]
+            blocks = [slice(part.col[c], part.col[c] + nb) if part.col[c] >= 0 else None for c in key]
+            for t, blk in enumerate(blocks):
+                if blk is None:
+                    continue
+                sub[:, :, blk] += a[t][idx]
+                sub[:, blk, :] += np.swapaxes(a[t][idx], 1, 2)
+            for (t1, t2), dd in d.items():
+                if blocks[t1] is not None and blocks[t2] is not None:
+                    sub[:, blocks[t1], blocks[t2]] += dd[idx]
+            mm[idx] = sub
+        return mm
 
     def _cross(self, part: _Part, c1, c2, t1, t2, fir: bool) -> np.ndarray:
         """Products of trial t1's regressor (group of c1) with trial t2's (group of c2): (B, nb, nb)."""

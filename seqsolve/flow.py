@@ -96,6 +96,14 @@ class FlowModel:
         e = int(np.argmax([solver.boolean_value(v) for v in self.end[run]]))
         return mm, s, e
 
+    def check_connected(self, run: int, mm: np.ndarray) -> np.ndarray:
+        """Raise Disconnected if the pairs between different conditions leave an island; else return them."""
+        off = mm.copy()
+        np.fill_diagonal(off, 0)
+        present = [c for c in range(mm.shape[0]) if self.facts.counts[run, c] > 0]
+        _raise_if_disconnected(run, off, present)
+        return off
+
     def build_run(self, run: int, mm: np.ndarray, first: int, last: int, rng: np.random.Generator) -> np.ndarray:
         """An ordering with exactly the pair counts mm, from first to last, stretches within bounds.
 
@@ -103,11 +111,8 @@ class FlowModel:
         condition's self-repeats are dealt out over its visits within the stretch bounds.
         """
         k = mm.shape[0]
-        counts = self.facts.counts[run]
-        present = [c for c in range(k) if counts[c] > 0]
-        off = mm.copy()
-        np.fill_diagonal(off, 0)
-        raise_if_disconnected(run, off, present)
+        present = [c for c in range(k) if self.facts.counts[run, c] > 0]
+        off = self.check_connected(run, mm)
         succ = []
         for a in range(k):
             nxt = np.repeat(np.arange(k), off[a])
@@ -134,7 +139,7 @@ class FlowModel:
         return np.repeat(trail, stretch)
 
 
-def raise_if_disconnected(run: int, off: np.ndarray, present: list[int]) -> None:
+def _raise_if_disconnected(run: int, off: np.ndarray, present: list[int]) -> None:
     """Raise Disconnected with the component of the first present condition if it is not all."""
     if not present:
         return

@@ -112,10 +112,11 @@ def score_design(
         sub = [schedules[r] for r in idx]
         ev = evaluator_for(study, setup, sub)
         codes = np.concatenate([runs[r] for r in idx])
-        det, est = ev.score(codes)
-        md, _ = ev.information(codes)
+        xd = ev.det.design(codes[None])[0]  # built once: detection, per-contrast figures, correlation
+        md = xd.T @ xd
+        det = float(batch_efficiency(md[None], setup.detection_contrast(), setup.criterion)[0][0])
+        est = float(ev.score_many(codes[None], detection=False)[1][0])
         per = _per_contrast(setup, md)
-        xd = ev.det.design(codes[None])[0][:, :: setup.n_basis]
         counts = study.facts.counts[idx]
         row = ScoreRow(
             participant=label,
@@ -125,7 +126,7 @@ def score_design(
             per_contrast=per,
             counterbalance_max=counterbalance_deviation([runs[r] for r in idx], counts)["max"],
             entropy_bits=conditional_entropy([runs[r] for r in idx], study.facts.n_conditions),
-            max_correlation=max_correlation(xd),
+            max_correlation=max_correlation(xd[:, :: setup.n_basis]),
         )
         if det == 0 or est == 0:
             row.warnings.append("information matrix singular or ill-conditioned: efficiency set to 0")

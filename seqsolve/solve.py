@@ -15,7 +15,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from seqsolve.errors import InfeasibleError, InternalError, SolverTimeoutError
-from seqsolve.flow import Disconnected, FlowModel, raise_if_disconnected
+from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
 from seqsolve.rules.participants_differ import ParticipantsDiffer
@@ -84,9 +84,9 @@ def choose_method(study: Study, options: SolveOptions) -> str:
     return "counts" if all(counts_expressible(study)) else "positions"
 
 
-def check_runs(study_or_facts, rules, runs: list[np.ndarray]) -> list:
-    facts = study_or_facts.facts if isinstance(study_or_facts, Study) else study_or_facts
-    return [v for rule in rules for v in rule.check(facts, runs)]
+def check_runs(study: Study, rules, runs: list[np.ndarray]) -> list:
+    """Every violation of the given rules in one participant's runs."""
+    return [v for rule in rules for v in rule.check(study.facts, runs)]
 
 
 def generate_orderings(
@@ -151,13 +151,13 @@ class _CountsPath:
     def solve(self, seed: int, earlier: list[list[np.ndarray]], differ: list[ParticipantsDiffer]) -> list[np.ndarray]:
         rng = np.random.default_rng(seed)
         for attempt in range(RESAMPLE_ATTEMPTS):
-            runs = self._sample(seed + attempt, rng)
+            runs = self.sample(seed + attempt, rng)
             if not any(rule.clashes(runs, earlier) for rule in differ):
                 return runs
         # sampling keeps meeting earlier participants: the exact per-position model decides
         return _PositionsPath(self.study, self.options).solve(seed, earlier, differ)
 
-    def _sample(self, seed: int, rng: np.random.Generator) -> list[np.ndarray]:
+    def sample(self, seed: int, rng: np.random.Generator) -> list[np.ndarray]:
         fm = self.fm
         fm.cp.clear_objective()
         # a random linear objective on the pair counts and run ends: different participants,
@@ -209,7 +209,7 @@ class _PositionsPath:
     def _start(self, seed: int, rng: np.random.Generator) -> list[np.ndarray]:
         """A starting ordering for the search: valid for every rule but the position-dependent ones."""
         try:
-            return self.sketch._sample(seed, rng)
+            return self.sketch.sample(seed, rng)
         except (InfeasibleError, SolverTimeoutError):
             return [
                 rng.permutation(np.repeat(np.arange(self.study.facts.n_conditions), n)) for n in self.study.facts.counts
@@ -341,11 +341,8 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
 def _counts_buildable(path: _CountsPath, solver) -> bool:
     fm = path.fm
     for r in range(fm.facts.n_runs):
-        mm, s, e = fm.values(solver, r)
-        off = mm.copy()
-        np.fill_diagonal(off, 0)
         try:
-            raise_if_disconnected(r, off, [c for c in range(fm.facts.n_conditions) if fm.facts.counts[r, c] > 0])
+            fm.check_connected(r, fm.values(solver, r)[0])
         except Disconnected as cut:
             fm.add_connectivity_cut(cut.run, cut.component)
             return False

@@ -43,50 +43,150 @@ def _progress(started: float):
     return show
 
 
+class _StepDisplay:
+    """One status line on stderr during the search: rewritten in place on a terminal, else a line
+    every few seconds (so logs stay short)."""
+
+    def __init__(self):
+        self.tty = sys.stderr.isatty()
+        self.last = 0.0
+
+    def __call__(self, p) -> None:
+        now = time.perf_counter()
+        if not self.tty and now - self.last < 5.0:
+            return
+        self.last = now
+        f = p.best
+        parts = (
+            ""
+            if f is None
+            else (
+                f"best {f.score:.4f} (detection {100 * f.detection_vs_block:.0f}% of block, "
+                f"estimation {f.estimation_vs_random:.2f}x random)"
+            )
+        )
+        line = f"  {p.participant}: step {p.iteration}/{p.iterations}  {p.elapsed:5.1f} s  {parts}"
+        if self.tty:
+            typer.echo("\r" + line.ljust(100)[:100], err=True, nl=False)
+        else:
+            typer.echo(line, err=True)
+
+    def end_line(self) -> None:
+        if self.tty:
+            typer.echo("", err=True)
+
+
 @app.command()
 def generate(
     spec: SpecArg,
     out: Annotated[Path, typer.Option("-o", "--out", help="Output folder (must be new or empty).")],
     seed: Annotated[int | None, typer.Option(help="Master seed; overrides study.seed.")] = None,
     force: Annotated[bool, typer.Option(help="Replace an existing output folder.")] = False,
+    iterations: Annotated[
+        int | None, typer.Option(min=0, help="Search steps per participant (overrides objective.iterations; 0: none).")
+    ] = None,
+    budget: Annotated[
+        float | None, typer.Option(min=0, help="Wall-clock cap in seconds per participant's search.")
+    ] = None,
+    front: Annotated[int, typer.Option(min=0, help="Also write front.tsv: the trade-off at this many weightings.")] = 0,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
 ) -> None:
-    """Generate valid orderings and schedules for every participant.
+    """Search valid, efficient orderings and schedules for every participant.
+
+    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's
+    [objective]. Ctrl-C stops the search and writes the best designs found so far.
 
     Example: seqsolve generate examples/reward_cue.toml -o designs/
     """
     from seqsolve.generate import generate as run_generate
+    from seqsolve.search import SearchOptions
     from seqsolve.solve import SolveOptions
     from seqsolve.spec import load_study
 
     if method not in ("auto", "counts", "positions"):
         typer.echo("error: --method must be auto, counts or positions", err=True)
         raise typer.Exit(2)
+    if front == 1:
+        typer.echo("error: --front needs at least 2 points (or 0 for none)", err=True)
+        raise typer.Exit(2)
     started = time.perf_counter()
+    display = _StepDisplay()
     try:
         study = load_study(spec, seed=seed)
+        steps = study.spec.objective.iterations if iterations is None else iterations
         typer.echo(
-            f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), {len(study.rules)} rule(s)",
+            f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), "
+            f"{len(study.rules)} rule(s); " + (f"search of {steps} steps per participant" if steps else "no search"),
             err=True,
         )
+        solve = SolveOptions(time_limit=time_limit, method=method)
         designs = run_generate(
             study,
             out,
             force=force,
-            options=SolveOptions(time_limit=time_limit, method=method),
-            progress=_progress(started),
+            options=solve,
+            progress=None if steps else _progress(started),
+            search=SearchOptions(iterations=iterations, budget=budget, solve=solve),
+            on_step=display,
+            front=front,
         )
     except SeqsolveError as exc:
+        display.end_line()
         _fail(exc)
     except KeyboardInterrupt:
+        display.end_line()
         typer.echo("interrupted; nothing was written", err=True)
         raise typer.Exit(130) from None
+    display.end_line()
+    if designs and designs[0].figures is not None:
+        typer.echo(_designs_table(designs))
+    for note in designs.notes:
+        typer.echo(f"note: {note}")
     typer.echo(
         f"wrote {len(designs)} participant design(s) to {out}/ in {time.perf_counter() - started:.1f} s "
         f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks"
     )
-    typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv")
+    extra = f", {out}/front.tsv" if front and "front interrupted: front.tsv not written" not in designs.notes else ""
+    typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv{extra}")
+
+
+def _table(head: list[str], rows: list[list[str]]) -> str:
+    lines = [head] + rows
+    widths = [max(len(row[i]) for row in lines) for i in range(len(head))]
+    out = ["  ".join(cell.rjust(w) for cell, w in zip(row, widths)) for row in lines]
+    out.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(out)
+
+
+def _designs_table(designs) -> str:
+    head = ["participant", "score", "detection vs block", "estimation vs random", "counterbalance", "steps", "stopped"]
+    rows = []
+    for d in designs:
+        f, info = d.figures, d.search or {}
+        if f is None:
+            rows.append([d.label, "-", "-", "-", "-", "0", "not searched"])
+            continue
+        rows.append(
+            [
+                d.label,
+                f"{f.score:.4f}",
+                f"{100 * f.detection_vs_block:.1f}%",
+                f"{f.estimation_vs_random:.3f}x",
+                f"{f.counterbalance:.3f}",
+                str(info.get("iterations", 0)),
+                info.get("stopped", "") + (" (rescued)" if "rescued_from" in info else ""),
+            ]
+        )
+    text = _table(head, rows)
+    spread = designs.spread()
+    w = designs.weights
+    text += (
+        f"\nscore = {w.detection:.2f} x detection vs block + {w.estimation:.2f} x estimation vs random"
+        + (f" + {w.counterbalance:.2f} x counterbalance" if w.counterbalance else "")
+        + (f"; spread across participants {100 * spread:.1f}%" if spread is not None else "")
+    )
+    return text
 
 
 @app.command()
@@ -222,9 +322,7 @@ def _score_table(rows) -> str:
                 f"{r.max_correlation:.2f}",
             ]
         )
-    widths = [max(len(row[i]) for row in lines) for i in range(len(head))]
-    out = ["  ".join(cell.rjust(w) for cell, w in zip(row, widths)) for row in lines]
-    out.insert(1, "  ".join("-" * w for w in widths))
+    out = [_table(lines[0], lines[1:])]
     for r in rows:
         for w in r.warnings:
             out.append(f"warning: participant {r.participant} run {r.run}: {w}")

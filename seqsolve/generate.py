@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import platform
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from importlib import metadata
@@ -15,14 +16,24 @@ from seqsolve.audit import audit_orderings
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
-from seqsolve.solve import ParticipantOrdering, SolveOptions, generate_orderings
+from seqsolve.efficiency.setup import make_setup
+from seqsolve.objective import Figures, References, Scorer, Weights
+from seqsolve.search import Progress, Search, SearchOptions
+from seqsolve.solve import (
+    ParticipantOrdering,
+    SolveOptions,
+    choose_method,
+    derive_seed,
+    generate_orderings,
+    sample_orderings,
+)
 from seqsolve.spec import Study
-from seqsolve.timing import RunSchedule, make_schedules
+from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
 
 
 @dataclass
 class Design:
-    """One participant's result: orderings and schedules."""
+    """One participant's result: orderings and schedules, and what the search made of them."""
 
     label: str
     seed: int
@@ -30,6 +41,26 @@ class Design:
     runs: list[np.ndarray]
     schedules: list[RunSchedule]
     seconds: float
+    figures: Figures | None = None
+    search: dict | None = None  # iterations, why it stopped, improving steps by kind
+
+
+class StudyDesigns(list):
+    """The designs of every participant (a list), with what the search was steered by."""
+
+    def __init__(self, designs=(), weights: Weights | None = None):
+        super().__init__(designs)
+        self.weights = weights
+        self.references: References | None = None
+        self.interrupted = False
+        self.notes: list[str] = []
+
+    def spread(self) -> float | None:
+        """1 - (worst participant's score / best's): 0 when all are equally good."""
+        scores = [d.figures.score for d in self if d.figures is not None]
+        if not scores or max(scores) <= 0:
+            return None
+        return 1.0 - min(scores) / max(scores)
 
 
 def versions() -> dict[str, str]:
@@ -46,16 +77,125 @@ def design_study(
     study: Study,
     options: SolveOptions | None = None,
     progress: Callable[[int, int, str], None] | None = None,
-) -> list[Design]:
-    """Orderings and schedules for every participant (no files written)."""
-    found: list[ParticipantOrdering] = generate_orderings(study, options, progress)
-    designs = [
-        Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
-    ]
+    search: SearchOptions | None = None,
+    on_step: Callable[[Progress], None] | None = None,
+) -> StudyDesigns:
+    """Orderings and schedules for every participant (no files written).
+
+    With the spec's [objective] iterations above 0 (or search.iterations), each participant's
+    design is searched for (seqsolve.search); otherwise it is the first valid ordering found.
+    Ctrl-C during a search keeps the best design found so far; participants not reached yet
+    then get a valid design without search, and the result says so (interrupted).
+    """
+    options = options or SolveOptions()
+    search = search or SearchOptions(solve=options)
+    iterations = study.spec.objective.iterations if search.iterations is None else search.iterations
+    if iterations == 0:
+        found: list[ParticipantOrdering] = generate_orderings(study, options, progress)
+        designs = StudyDesigns(
+            Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
+        )
+    else:
+        designs = _searched(study, options, search, progress, on_step)
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
     return designs
+
+
+def _searched(study, options, search, progress, on_step) -> StudyDesigns:
+    setup = make_setup(study)
+    weights = Weights.from_study(study)
+    method = choose_method(study, options)
+    out = StudyDesigns(weights=weights)
+    for i, label in enumerate(study.participants):
+        if progress:
+            progress(i, len(study.participants), label)
+        seed = derive_seed(study.spec.study.seed, i)
+        earlier = [d.runs for d in out]
+        t0 = time.perf_counter()
+        try:
+            if out.interrupted:
+                raise KeyboardInterrupt  # the user asked to stop: no more searching
+            starts = Search.sample_starts(study, seed, earlier, search)
+            gaps = draw_gaps(study, starts[0], seed)
+            if out.references is None:  # one yardstick for every participant: the first's timing
+                out.references = References.for_study(study, setup, seed)
+            scorer = Scorer(study, weights, out.references, seed, gaps, setup)
+            result = Search(study, scorer, label, seed, earlier, search, on_step).run(starts)
+        except KeyboardInterrupt:
+            if out.interrupted and search.iterations == 0:
+                raise
+            out.interrupted = True
+            runs = sample_orderings(study, seed, 1, earlier, options)[0]
+            schedules = make_schedules(study, runs, seed)
+            out.append(Design(label, seed, method, runs, schedules, time.perf_counter() - t0))
+            continue
+        if result.stopped == "interrupted":
+            out.interrupted = True
+        schedules = make_schedules(study, result.runs, seed, result.gaps)
+        info = {"iterations": result.iterations, "stopped": result.stopped, "improving_steps": result.accepted}
+        out.append(Design(label, seed, method, result.runs, schedules, time.perf_counter() - t0, result.figures, info))
+    if progress:
+        progress(len(study.participants), len(study.participants), "")
+    if not out.interrupted:
+        _even_out(study, out, setup, search, on_step)
+    if out.interrupted:
+        missing = [d.label for d in out if d.figures is None]
+        out.notes.append(
+            "search interrupted: each participant has the best design found before the stop"
+            + (f"; participants {', '.join(missing)} got a valid design without search" if missing else "")
+        )
+    return out
+
+
+#: rounds of rescue for participants below the spread floor
+RESCUE_ROUNDS = 3
+
+
+def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_step) -> None:
+    """Bring every participant within the spec's spread of the best one's score.
+
+    A participant below the floor gets a new search started from a random valid variation of the
+    best participant's design (different from every other participant's); it keeps the result
+    only if it scores higher than before.
+    """
+    floor_frac = 1.0 - study.spec.objective.spread
+    for _ in range(RESCUE_ROUNDS):
+        best = max(designs, key=lambda d: d.figures.score)
+        low = [i for i, d in enumerate(designs) if d.figures.score < floor_frac * best.figures.score]
+        if not low:
+            return
+        for i in low:
+            d = designs[i]
+            others = [x.runs for j, x in enumerate(designs) if j != i]
+            gaps = search_gaps(d) if study.spec.timing.soa is None else None
+            scorer = Scorer(study, designs.weights, designs.references, d.seed, gaps, setup)
+            s = Search(study, scorer, d.label, d.seed + 1, others, search, on_step)
+            start = s.variation(best.runs)
+            if start is None:
+                continue
+            result = s.run([start])
+            if result.figures.score > d.figures.score:
+                schedules = make_schedules(study, result.runs, d.seed, result.gaps)
+                info = dict(d.search or {}, rescued_from=best.label, iterations_rescue=result.iterations)
+                designs[i] = Design(
+                    d.label, d.seed, d.method, result.runs, schedules, d.seconds + result.seconds, result.figures, info
+                )
+    best = max(d.figures.score for d in designs)
+    worst = min(d.figures.score for d in designs)
+    if worst < floor_frac * best:
+        designs.notes.append(
+            f"spread: the lowest participant scores {worst / best:.1%} of the best, below the "
+            f"{floor_frac:.0%} asked for by objective.spread; more iterations may close the gap"
+        )
+
+
+def search_gaps(d: Design) -> list[np.ndarray] | None:
+    """The gaps of a design's schedules (None under a fixed soa)."""
+    if not d.schedules or len(d.schedules[0].onsets) < 2:
+        return None
+    return [np.diff(s.onsets) - s.durations[:-1] for s in d.schedules]
 
 
 def efficiency_summary(study: Study, design: Design) -> dict:
@@ -88,6 +228,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
         "analysis": study.spec.analysis.model_dump(mode="json"),
+        "objective": _objective_summary(study, designs),
         "participants": [
             {
                 "label": d.label,
@@ -96,6 +237,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
                 "rules_passed": len(rules),
                 "violations": 0,
                 "metrics": efficiency_summary(study, d),
+                **({"score": d.figures.as_dict(), "search": d.search} if d.figures is not None else {}),
                 "runs": [
                     {"run": r + 1, "trials": int(len(s.codes)), "volumes": s.n_volumes, "seconds": round(s.length, 6)}
                     for r, s in enumerate(d.schedules)
@@ -106,12 +248,31 @@ def manifest(study: Study, designs: list[Design]) -> dict:
     }
 
 
-def output_files(study: Study, designs: list[Design]) -> dict[str, str]:
+def _objective_summary(study: Study, designs: list[Design]) -> dict:
+    """What the search was steered by, and how even the participants came out."""
+    out: dict = {"spec": study.spec.objective.model_dump(mode="json")}
+    if isinstance(designs, StudyDesigns) and designs.weights is not None:
+        out["weights"] = designs.weights.as_dict()
+        out["references"] = designs.references.as_dict() if designs.references else None
+        spread = designs.spread()
+        out["spread"] = None if spread is None else round(spread, 9)
+        out["interrupted"] = designs.interrupted
+        out["notes"] = list(designs.notes)
+    else:
+        out["searched"] = False
+    return out
+
+
+def output_files(study: Study, designs: list[Design], front: list | None = None) -> dict[str, str]:
     files = {}
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
             files[events_filename(study, d.label, r)] = events_tsv(study, s)
     files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs})
+    if front:
+        from seqsolve.tradeoff import front_tsv
+
+        files["front.tsv"] = front_tsv(study, front)
     files["manifest.json"] = json.dumps(manifest(study, designs), indent=2) + "\n"
     return files
 
@@ -123,8 +284,14 @@ def generate(
     force: bool = False,
     options: SolveOptions | None = None,
     progress: Callable[[int, int, str], None] | None = None,
-) -> list[Design]:
+    search: SearchOptions | None = None,
+    on_step: Callable[[Progress], None] | None = None,
+    front: int = 0,
+) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
+
+    front: also search the detection/estimation trade-off at this many weightings (first
+    participant's timing) and write front.tsv.
 
     Raises
     ------
@@ -134,6 +301,14 @@ def generate(
         When no valid ordering can be produced.
     """
     ensure_writable(outdir, force)
-    designs = design_study(study, options, progress)
-    write_folder(outdir, output_files(study, designs), force=force)
+    designs = design_study(study, options, progress, search, on_step)
+    points = None
+    if front:
+        from seqsolve.tradeoff import trade_off_front
+
+        try:
+            points = trade_off_front(study, front, search or SearchOptions(solve=options or SolveOptions()), 0, on_step)
+        except KeyboardInterrupt:
+            designs.notes.append("front interrupted: front.tsv not written")
+    write_folder(outdir, output_files(study, designs, points), force=force)
     return designs

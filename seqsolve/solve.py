@@ -125,6 +125,36 @@ def generate_orderings(
     return done
 
 
+def sample_orderings(
+    study: Study,
+    seed: int,
+    n: int,
+    earlier: list[list[np.ndarray]] | None = None,
+    options: SolveOptions | None = None,
+) -> list[list[np.ndarray]]:
+    """n valid designs for one participant, each from its own seed (duplicates dropped).
+
+    Used as diverse starting points by the search and as the random valid sample of compare.
+    Each design passes every rule's check and clashes with none of the earlier participants.
+    """
+    options = options or SolveOptions()
+    earlier = earlier or []
+    method = choose_method(study, options)
+    path = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
+    differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
+    out, seen = [], set()
+    for i in range(n):
+        runs = path.solve(derive_seed(seed, i), earlier, differ)
+        problems = check_runs(study, study.rules, runs) + [c for rule in differ for c in rule.clashes(runs, earlier)]
+        if problems:  # the encodings promise this never happens
+            raise InternalError(f"sampled ordering fails a check: {problems[:3]}")
+        key = tuple(np.concatenate(runs).tolist())
+        if key not in seen:
+            seen.add(key)
+            out.append(runs)
+    return out
+
+
 def _params(
     seed: int, options: SolveOptions, time_limit: float | None = None, work: float | None = None
 ) -> cp_model.CpSolver:
@@ -369,4 +399,4 @@ def check_study(study: Study, options: SolveOptions | None = None) -> CheckResul
     return CheckResult(True, choose_method(study, options), None, time.perf_counter() - t0)
 
 
-__all__ = ["SolveOptions", "check_study", "explain", "generate_orderings"]
+__all__ = ["SolveOptions", "check_study", "explain", "generate_orderings", "sample_orderings"]

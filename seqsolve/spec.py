@@ -176,6 +176,31 @@ class Analysis(Strict):
     )
 
 
+class Objective(Strict):
+    """[objective]: what the search steers toward, and how long it searches per participant.
+
+    Each figure is relative to a reference for the same counts and timing (see seqsolve.objective):
+    detection to the best block design's, estimation to the mean of random orderings', and
+    counterbalancing as 1 / (1 + RMS deviation of the pair counts from ideal). The score is their
+    weighted mean.
+    """
+
+    detection: float = Field(default=1.0, ge=0, description="Weight of detection (relative to the best block design).")
+    estimation: float = Field(default=1.0, ge=0, description="Weight of estimation (relative to random orderings).")
+    counterbalance: float = Field(default=0.0, ge=0, description="Weight of first-order counterbalancing.")
+    iterations: int = Field(default=150, ge=0, le=1_000_000, description="Search steps per participant; 0: no search.")
+    stall: int = Field(default=50, ge=1, description="Stop a participant's search after this many steps without gain.")
+    spread: float = Field(
+        default=0.05, ge=0, lt=1, description="Every participant's score within this fraction of the best one's."
+    )
+
+    @model_validator(mode="after")
+    def _some_weight(self):
+        if self.detection + self.estimation + self.counterbalance <= 0:
+            raise ValueError("at least one of detection, estimation, counterbalance must have a weight above 0")
+        return self
+
+
 class RuleSet(Strict):
     """A file of ready-made rules in rules/."""
 
@@ -192,6 +217,7 @@ class Spec(Strict):
     include: list[str] = Field(default_factory=list, description="Rule sets from rules/ (name or .toml path).")
     rules: list[AnyRule] = Field(default_factory=list)
     analysis: Analysis = Field(default_factory=Analysis)
+    objective: Objective = Field(default_factory=Objective)
 
 
 @dataclass(frozen=True)

@@ -30,8 +30,13 @@ def trial_durations(study: Study) -> np.ndarray:
     return np.array([c.duration if c.duration is not None else default for c in study.spec.conditions], dtype=float)
 
 
-def make_schedules(study: Study, runs: list[np.ndarray], seed: int) -> list[RunSchedule]:
+def make_schedules(
+    study: Study, runs: list[np.ndarray], seed: int, gaps: list[np.ndarray] | None = None
+) -> list[RunSchedule]:
     """Schedules of one participant's runs; deterministic given seed.
+
+    gaps: per run, the gaps between trials (seconds) to use instead of drawing them from the seed,
+    e.g. gaps rearranged by the search (see draw_gaps); ignored under a fixed soa.
 
     Raises
     ------
@@ -39,10 +44,33 @@ def make_schedules(study: Study, runs: list[np.ndarray], seed: int) -> list[RunS
         When the trials cannot fit the declared run length, naming the timing fields.
     """
     durs = trial_durations(study)
-    return [_schedule(study, np.asarray(seq), durs, np.random.default_rng([seed, r, 1])) for r, seq in enumerate(runs)]
+    given = gaps if gaps is not None and study.spec.timing.soa is None else [None] * len(runs)
+    return [
+        _schedule(study, np.asarray(seq), durs, np.random.default_rng([seed, r, 1]), g)
+        for r, (seq, g) in enumerate(zip(runs, given))
+    ]
 
 
-def _schedule(study: Study, codes: np.ndarray, durs: np.ndarray, rng: np.random.Generator) -> RunSchedule:
+def draw_gaps(study: Study, runs: list[np.ndarray], seed: int) -> list[np.ndarray] | None:
+    """The gaps make_schedules would draw for these runs (None under a fixed soa).
+
+    They depend on the runs' trial counts and durations only, not on the order of the trials, so a
+    search may permute them within a run and keep both the declared distribution and the run length.
+    """
+    if study.spec.timing.soa is not None:
+        return None
+    return [np.diff(s.onsets) - s.durations[:-1] for s in make_schedules(study, runs, seed)]
+
+
+def jitter_free(study: Study) -> bool:
+    """True when every gap is the same, so there is no jitter to rearrange."""
+    t = study.spec.timing
+    return t.soa is not None or isinstance(t.iti, FixedGap) or t.iti is None
+
+
+def _schedule(
+    study: Study, codes: np.ndarray, durs: np.ndarray, rng: np.random.Generator, gaps: np.ndarray | None = None
+) -> RunSchedule:
     t: Timing = study.spec.timing
     n = len(codes)
     d = durs[codes]
@@ -55,11 +83,12 @@ def _schedule(study: Study, codes: np.ndarray, durs: np.ndarray, rng: np.random.
             )
         onsets = t.lead_in + t.soa * np.arange(n)
     else:
-        gaps = jitter_gaps(t, n - 1, rng)
-        if fixed_length is not None:
-            target = fixed_length - t.lead_in - d.sum() - t.lead_out
-            gaps = _fit_total(gaps, target, t, rng, study.source)
-        onsets = t.lead_in + np.concatenate([[0.0], np.cumsum(d[:-1] + gaps)])
+        if gaps is None:
+            gaps = jitter_gaps(t, n - 1, rng)
+            if fixed_length is not None:
+                target = fixed_length - t.lead_in - d.sum() - t.lead_out
+                gaps = _fit_total(gaps, target, t, rng, study.source)
+        onsets = t.lead_in + np.concatenate([[0.0], np.cumsum(d[:-1] + np.asarray(gaps))])
     end = float(onsets[-1] + d[-1] + t.lead_out) if n else t.lead_in + t.lead_out
     if fixed_length is not None:
         if end > fixed_length + 1e-6:

@@ -21,10 +21,14 @@ def run(*args):
     return runner.invoke(app, [str(a) for a in args])
 
 
+#: a short search keeps these tests quick; test_examples runs the README's command as written
+SHORT = ("--iterations", "8")
+
+
 @pytest.fixture(scope="module")
 def generated(tmp_path_factory):
     out = tmp_path_factory.mktemp("gen") / "designs"
-    result = run("generate", EXAMPLE, "-o", out)
+    result = run("generate", EXAMPLE, "-o", out, *SHORT)
     assert result.exit_code == 0, result.output
     return out
 
@@ -57,16 +61,16 @@ def test_refuses_to_overwrite_without_force(generated, tmp_path):
     out = tmp_path / "copy"
     shutil.copytree(generated, out)
     before = (out / "orderings.csv").read_text()
-    result = run("generate", EXAMPLE, "-o", out)
+    result = run("generate", EXAMPLE, "-o", out, *SHORT)
     assert result.exit_code == 2 and "--force" in result.output
     assert (out / "orderings.csv").read_text() == before
-    assert run("generate", EXAMPLE, "-o", out, "--force", "--seed", "99").exit_code == 0
+    assert run("generate", EXAMPLE, "-o", out, "--force", "--seed", "99", *SHORT).exit_code == 0
     assert (out / "orderings.csv").read_text() != before
 
 
 def test_same_spec_and_seed_give_byte_identical_outputs(generated, tmp_path):
     again = tmp_path / "again"
-    assert run("generate", EXAMPLE, "-o", again).exit_code == 0
+    assert run("generate", EXAMPLE, "-o", again, *SHORT).exit_code == 0
     for p in generated.rglob("*"):
         if p.is_file():
             assert (again / p.relative_to(generated)).read_bytes() == p.read_bytes(), p.name

@@ -292,21 +292,42 @@ class Evaluator:
         i, j = np.triu_indices(len(codes), 1) if swaps else (np.zeros(0, int), np.zeros(0, int))
         keep = codes[i] != codes[j]
         pairs = np.column_stack([i[keep], j[keep]])
-        nan_changes = np.full((len(codes), self.k), np.nan)
-        nan_swaps = np.full(len(pairs), np.nan)
-        with one_blas_thread():
-            cd = self._changes(self.det, codes, self.c_det) if detection else nan_changes
-            ce = self._changes(self.est, codes, self.c_est) if estimation else nan_changes
-            sd = self._swaps(self.det, codes, pairs, self.c_det, fir=False) if detection else nan_swaps
-            se = self._swaps(self.est, codes, pairs, self.c_est, fir=True) if estimation else nan_swaps
+        cd, ce = self.change_scores(codes, detection, estimation)
+        sd, se = self.swap_scores(codes, pairs, detection, estimation)
         return Neighbours(cd, ce, pairs, sd, se)
 
-    def _changes(self, part: _Part, codes: np.ndarray, contrast: np.ndarray) -> np.ndarray:
-        n_trials = len(codes)
-        trial = np.repeat(np.arange(n_trials), self.k)
-        new = np.tile(np.arange(self.k), n_trials)
+    def change_scores(
+        self, codes: np.ndarray, detection: bool = True, estimation: bool = True, trials: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Scores after changing each trial to each condition: two arrays (n_trials, n_conditions).
+
+        trials: only these trials (rows in that order); default all. The current label's entry is
+        the current score. A part not asked for comes back as NaN.
+        """
+        codes = np.asarray(codes)
+        trials = np.arange(len(codes)) if trials is None else np.asarray(trials, dtype=np.int64)
+        nan = np.full((len(trials), self.k), np.nan)
+        with one_blas_thread():
+            cd = self._changes(self.det, codes, self.c_det, trials) if detection else nan
+            ce = self._changes(self.est, codes, self.c_est, trials) if estimation else nan
+        return cd, ce
+
+    def swap_scores(
+        self, codes: np.ndarray, pairs: np.ndarray, detection: bool = True, estimation: bool = True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Scores after swapping the labels of each pair of trials (pairs (n, 2), labels differ)."""
+        codes, pairs = np.asarray(codes), np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+        nan = np.full(len(pairs), np.nan)
+        with one_blas_thread():
+            sd = self._swaps(self.det, codes, pairs, self.c_det, fir=False) if detection else nan
+            se = self._swaps(self.est, codes, pairs, self.c_est, fir=True) if estimation else nan
+        return sd, se
+
+    def _changes(self, part: _Part, codes: np.ndarray, contrast: np.ndarray, trials: np.ndarray) -> np.ndarray:
+        trial = np.repeat(trials, self.k)
+        new = np.tile(np.arange(self.k), len(trials))
         terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
-        return self._score_terms(part, codes, terms, contrast, fir=False).reshape(n_trials, self.k)
+        return self._score_terms(part, codes, terms, contrast, fir=False).reshape(len(trials), self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
         """Swap trials i and j: condition c_j gains trial i and loses j, c_i the reverse."""

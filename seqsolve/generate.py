@@ -13,10 +13,10 @@ from pathlib import Path
 import numpy as np
 
 from seqsolve.audit import audit_orderings
+from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
-from seqsolve.efficiency.setup import make_setup
 from seqsolve.objective import Figures, References, Scorer, Weights
 from seqsolve.search import Progress, Search, SearchOptions
 from seqsolve.solve import (

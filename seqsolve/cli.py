@@ -330,6 +330,92 @@ def _score_table(rows) -> str:
 
 
 @app.command()
+def compare(
+    spec: SpecArg,
+    plot: Annotated[Path | None, typer.Option(help="Also draw the plane to this .png or .svg file.")] = None,
+    samples: Annotated[int, typer.Option(min=1, help="Random valid designs sampled from CP-SAT.")] = 200,
+    front: Annotated[int, typer.Option(min=0, help="seqsolve's points, from detection to estimation (0: none).")] = 5,
+    iterations: Annotated[
+        int | None, typer.Option(min=0, help="Search steps per front point (default: objective.iterations).")
+    ] = None,
+    force: Annotated[bool, typer.Option(help="Replace an existing plot file.")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Print every point as JSON.")] = False,
+) -> None:
+    """Block, permuted block, m-sequence and random designs beside seqsolve's trade-off front.
+
+    Each family is built under the spec's counts, timing and rules where they allow it; the table
+    says which could not be built and why. Scores use the first participant's timing.
+
+    Example: seqsolve compare examples/reward_cue.toml --plot plane.png
+    """
+    from seqsolve.compare import check_plot_path
+    from seqsolve.compare import compare as run_compare
+    from seqsolve.compare import plot as draw
+    from seqsolve.search import SearchOptions
+    from seqsolve.spec import load_study
+
+    if front == 1:
+        typer.echo("error: --front needs at least 2 points (or 0 for none)", err=True)
+        raise typer.Exit(2)
+    display = _StepDisplay()
+    try:
+        if plot is not None:
+            check_plot_path(plot, force)
+        study = load_study(spec)
+        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display)
+        display.end_line()
+        if plot is not None:
+            draw(result, plot, study.spec.study.name)
+    except SeqsolveError as exc:
+        display.end_line()
+        _fail(exc)
+    except KeyboardInterrupt:
+        display.end_line()
+        typer.echo("interrupted; nothing was written", err=True)
+        raise typer.Exit(130) from None
+    if as_json:
+        typer.echo(
+            json.dumps(
+                {
+                    "references": result.references.as_dict(),
+                    "families": result.summary(),
+                    "points": [p.__dict__ for p in result.points],
+                },
+                indent=2,
+            )
+        )
+        raise typer.Exit(0)
+
+    def fmt(v, kind):
+        if v is None:
+            return "-"
+        return f"{100 * v:.1f}%" if kind == "d" else f"{v:.3f}x"
+
+    rows = [
+        [
+            r["family"],
+            str(r["designs"]),
+            fmt(r["best_detection"], "d"),
+            fmt(r["mean_detection"], "d"),
+            fmt(r["best_estimation"], "e"),
+            fmt(r["mean_estimation"], "e"),
+        ]
+        for r in result.summary()
+    ]
+    head = ["family", "designs", "best detection", "mean detection", "best estimation", "mean estimation"]
+    typer.echo(_table(head, rows))
+    for r in result.summary():
+        typer.echo(f"  {r['family']}: {r['note']}")
+    ref = result.references
+    typer.echo(
+        f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "
+        "estimation as a multiple of the mean random ordering's; same counts and timing."
+    )
+    if plot is not None:
+        typer.echo(f"wrote {plot}")
+
+
+@app.command()
 def schema() -> None:
     """Print the JSON Schema of the spec file (for editor completion and validation)."""
     from seqsolve.spec import spec_json_schema

@@ -55,6 +55,7 @@ class SearchOptions:
     swap_sample: int = 1500  # swaps scored per step when estimation (the slower part) is weighted
     window: int = 10  # first neighbourhood size (positions)
     window_work: float = 0.1  # CP-SAT deterministic work per neighbourhood
+    listing: int = 400  # completions of a small window scored exactly per enumerate step
     kick: int = 8  # failed neighbourhoods in a row before moving away from the best design
     solve: SolveOptions = field(default_factory=SolveOptions)
 
@@ -110,11 +111,18 @@ class WindowSolver:
         self.study, self.earlier, self.work, self.options = study, earlier, work, options
 
     def solve(
-        self, runs: list[np.ndarray], run: int, positions: np.ndarray, weights: np.ndarray, seed: int
+        self,
+        runs: list[np.ndarray],
+        run: int,
+        positions: np.ndarray,
+        weights: np.ndarray | None,
+        seed: int,
+        listing: int = 0,
     ) -> tuple[list[list[np.ndarray]], bool]:
         """Designs for the freed positions, improving on sum weights[i, c] * [position i holds c].
 
-        weights: integers, shape (len(positions), n_conditions). Returns every solution CP-SAT met
+        weights: integers, shape (len(positions), n_conditions); None: list valid completions
+        instead, up to `listing` of them (proved complete: the bool). Returns every solution CP-SAT met
         on its way (the last is the best for the linear objective; all are valid, and the caller
         re-scores them exactly) and whether the last was proved optimal. The current labels are a
         valid answer, given as a hint; an empty list when nothing was found within the work limit.
@@ -131,17 +139,22 @@ class WindowSolver:
         lits, coefs = [], []
         for i, p in enumerate(positions):
             for c in range(xs.shape[1]):
-                if weights[i, c]:
+                if weights is not None and weights[i, c]:
                     lits.append(xs[p, c])
                     coefs.append(int(weights[i, c]))
             for c in range(xs.shape[1]):
                 m.cp.add_hint(xs[p, c], bool(c == runs[run][p]))
-        if lits:
-            m.cp.maximize(cp_model.LinearExpr.weighted_sum(lits, coefs))
-        seen = _Collector(xs[positions])
+        if weights is None:  # every completion (up to `enumerate`), for exact scoring by the caller
+            seen = _Collector(xs[positions], limit=listing)
+        else:
+            if lits:
+                m.cp.maximize(cp_model.LinearExpr.weighted_sum(lits, coefs))
+            seen = _Collector(xs[positions])
         m.cp.clear_assumptions()
         m.cp.add_assumptions(guards)
         solver = _params(seed, self.options, work=self.work)
+        if weights is None:
+            solver.parameters.enumerate_all_solutions = True
         status = solver.solve(m.cp, seen)
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             return [], False
@@ -156,14 +169,16 @@ class WindowSolver:
 class _Collector(cp_model.CpSolverSolutionCallback):
     """The freed positions' labels in every solution CP-SAT reports."""
 
-    def __init__(self, lits: np.ndarray):
+    def __init__(self, lits: np.ndarray, limit: int = 0):
         super().__init__()
-        self.lits = lits
+        self.lits, self.limit = lits, limit
         self.labels: list[np.ndarray] = []
 
     def on_solution_callback(self) -> None:
         vals = np.array([[self.boolean_value(v) for v in row] for row in self.lits], dtype=bool)
         self.labels.append(vals.argmax(axis=1).astype(np.int64))
+        if self.limit and len(self.labels) >= self.limit:
+            self.stop_search()
 
 
 class Search:
@@ -190,7 +205,9 @@ class Search:
         self.lengths = scorer.lengths
         self.offsets = np.concatenate([[0], np.cumsum(self.lengths)])
         self.window = options.window
+        self.small = options.window
         self.accepted: dict[str, int] = {}
+        self.tries = {"neighbourhood": [1, 2], "enumerate": [1, 2]}  # [gains + 1, tries + 2] per kind
         self.jitter = scorer.gaps is not None and any(len(np.unique(np.round(g, 6))) > 1 for g in scorer.gaps)
         # same-run pairs of trials (global indices)
         self.pairs = np.concatenate(
@@ -225,7 +242,10 @@ class Search:
                 elif self.jitter and it % 4 == 0:
                     step, gained = "gaps", self._gap_step()
                 else:
-                    step, gained = "neighbourhood", self._window_step()
+                    step = self._pick()
+                    gained = self._window_step() if step == "neighbourhood" else self._enumerate_step()
+                    self.tries[step][0] += gained
+                    self.tries[step][1] += 1
                     failures = 0 if gained else failures + 1
                     swaps_left = gained  # a changed design may have new gaining swaps
                     if failures >= self.options.kick:
@@ -256,6 +276,11 @@ class Search:
             seconds=time.perf_counter() - t0,
             accepted=dict(self.accepted),
         )
+
+    def _pick(self) -> str:
+        """Neighbourhood kind, in proportion to each kind's rate of gain so far."""
+        rates = np.array([g / t for g, t in self.tries.values()])
+        return list(self.tries)[int(self.rng.choice(len(rates), p=rates / rates.sum()))]
 
     def _best_figures(self) -> Figures | None:
         if getattr(self, "_shown", None) is not None and self._shown[0] == self.best_score:
@@ -327,11 +352,11 @@ class Search:
                 return True
         return False
 
-    def _neighbourhood(self) -> tuple[int, np.ndarray]:
-        """A run and some of its positions to free."""
+    def _neighbourhood(self, size: int) -> tuple[int, np.ndarray]:
+        """A run and some of its positions to free (about `size` of them)."""
         run = int(self.rng.choice(len(self.lengths), p=np.asarray(self.lengths) / sum(self.lengths)))
         n = self.lengths[run]
-        w = int(min(self.window, n))
+        w = int(min(size, n))
         kind = self.rng.integers(3)
         if kind == 0 or w >= n:  # a window
             start = int(self.rng.integers(0, n - w + 1))
@@ -348,8 +373,20 @@ class Search:
         a, b = self.rng.choice(present, 2, replace=False)
         return run, start + np.flatnonzero((seq == a) | (seq == b))
 
+    def _enumerate_step(self) -> bool:
+        """A small window's valid completions, all scored exactly; the best one if it gains."""
+        run, positions = self._neighbourhood(self.small)
+        seed = int(self.rng.integers(2**31 - 1))
+        found, complete = self.windows.solve(self.current, run, positions, None, seed, listing=self.options.listing)
+        if self._accept_best(found):
+            return True
+        n = max(self.lengths)
+        # all completions seen and none better: look wider next time; cut short: narrower
+        self.small = min(self.small + 1, n) if complete else max(4, self.small - 1)
+        return False
+
     def _window_step(self) -> bool:
-        run, positions = self._neighbourhood()
+        run, positions = self._neighbourhood(self.window)
         gains = self.scorer.change_gains(self.current, self.offsets[run] + positions)
         top = np.abs(gains).max()
         weights = np.rint(gains / top * 10_000).astype(np.int64) if top > 0 else np.zeros(gains.shape, np.int64)

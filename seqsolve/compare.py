@@ -1,0 +1,174 @@
+"""The compare job: the standard families beside seqsolve's own trade-off front, on one timing.
+
+Every design is scored for the spec's [analysis] on the first participant's timing, relative to
+the same references as the search (see seqsolve.objective), so all sit on one plane:
+detection (share of the best block design's) against estimation (times random orderings').
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from seqsolve.efficiency.setup import make_setup
+from seqsolve.errors import InputError, OutputExistsError, Problem
+from seqsolve.families import (
+    Family,
+    block_designs,
+    m_sequence_designs,
+    permuted_block_designs,
+    random_valid_designs,
+)
+from seqsolve.objective import References, Scorer, Weights
+from seqsolve.search import Progress, SearchOptions
+from seqsolve.solve import derive_seed
+from seqsolve.spec import Study
+from seqsolve.timing import draw_gaps
+from seqsolve.tradeoff import FrontPoint, trade_off_front
+
+PLOT_SUFFIXES = (".png", ".svg")
+
+
+@dataclass
+class Point:
+    family: str
+    label: str
+    detection: float  # share of the best block design's detection (any block size, rules or not)
+    estimation: float  # times the mean random ordering's estimation
+
+
+@dataclass
+class Comparison:
+    references: References
+    families: list[Family]
+    points: list[Point] = field(default_factory=list)
+    front: list[FrontPoint] = field(default_factory=list)
+
+    def summary(self) -> list[dict]:
+        """One row per family: best detection, best estimation, how many designs, and the note."""
+        rows = []
+        names = [f.name for f in self.families] + (["seqsolve front"] if self.front else [])
+        for name in names:
+            pts = [p for p in self.points if p.family == name]
+            fam = next((f for f in self.families if f.name == name), None)
+            rows.append(
+                {
+                    "family": name,
+                    "designs": len(pts),
+                    "best_detection": max((p.detection for p in pts), default=None),
+                    "best_estimation": max((p.estimation for p in pts), default=None),
+                    "mean_detection": float(np.mean([p.detection for p in pts])) if pts else None,
+                    "mean_estimation": float(np.mean([p.estimation for p in pts])) if pts else None,
+                    "note": fam.note if fam else f"{len(self.front)} weightings from detection to estimation",
+                }
+            )
+        return rows
+
+
+def compare(
+    study: Study,
+    samples: int = 200,
+    front_points: int = 5,
+    search: SearchOptions | None = None,
+    on_step: Callable[[Progress], None] | None = None,
+) -> Comparison:
+    """Build and score every family, and seqsolve's front (front_points = 0: no front)."""
+    setup = make_setup(study)
+    seed = derive_seed(study.spec.study.seed, 0)
+    families = [block_designs(study)]
+    blocks = families[0]
+    best_block = None
+    randoms = random_valid_designs(study, seed, samples)
+    gaps = draw_gaps(study, randoms.designs[0], seed)
+    refs = References.for_study(study, setup, seed)
+    scorer = Scorer(study, Weights.of(1.0, 1.0), refs, seed, gaps, setup)
+    if blocks.designs:
+        figs = [scorer.figures(d) for d in blocks.designs]
+        best_block = blocks.designs[int(np.argmax([f.detection for f in figs]))]
+    families.append(permuted_block_designs(study, best_block, seed))
+    families.append(m_sequence_designs(study, seed))
+    families.append(randoms)
+    out = Comparison(refs, families)
+    for fam in families:
+        for d, lab in zip(fam.designs, fam.labels):
+            f = scorer.figures(d)
+            out.points.append(Point(fam.name, lab, f.detection_vs_block, f.estimation_vs_random))
+    if front_points:
+        out.front = trade_off_front(study, front_points, search, 0, on_step)
+        for i, p in enumerate(out.front, start=1):
+            out.points.append(
+                Point("seqsolve front", f"point {i}", p.figures.detection_vs_block, p.figures.estimation_vs_random)
+            )
+    return out
+
+
+def check_plot_path(path: str | Path, force: bool) -> Path:
+    """Refuse an unknown suffix or an existing file (without force) before any work is done."""
+    path = Path(path)
+    if path.suffix.lower() not in PLOT_SUFFIXES:
+        raise InputError(
+            str(path),
+            [Problem("--plot", f"the plot file must end in {' or '.join(PLOT_SUFFIXES)}, not '{path.suffix}'")],
+        )
+    if path.exists() and not force:
+        raise OutputExistsError(f"{path}: exists; choose another --plot file, or add --force to replace it")
+    return path
+
+
+def plot(comparison: Comparison, path: str | Path, title: str) -> Path:
+    """Draw the detection-vs-estimation plane to a PNG or SVG file (written atomically)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    path = Path(path)
+    fig, ax = plt.subplots(figsize=(7.5, 5.5))
+    styles = {
+        "random valid": dict(marker=".", s=14, alpha=0.45, color="0.55", zorder=1),
+        "block": dict(marker="s", s=46, color="tab:red", zorder=3),
+        "permuted block": dict(marker="^", s=30, color="tab:orange", alpha=0.8, zorder=2),
+        "m-sequence": dict(marker="D", s=40, color="tab:green", zorder=3),
+    }
+    for fam in comparison.families:
+        pts = [p for p in comparison.points if p.family == fam.name]
+        if pts:
+            ax.scatter(
+                [p.detection for p in pts],
+                [p.estimation for p in pts],
+                label=f"{fam.name} ({len(pts)})",
+                **styles.get(fam.name, {}),
+            )
+    front = [p for p in comparison.points if p.family == "seqsolve front"]
+    if front:
+        ax.plot(
+            [p.detection for p in front],
+            [p.estimation for p in front],
+            "-o",
+            color="tab:blue",
+            label="seqsolve, detection to estimation weightings",
+            zorder=4,
+        )
+    ax.set_xlabel("detection: share of the best block design's")
+    ax.set_ylabel("estimation: times the mean random ordering's")
+    ax.set_title(title)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8, loc="best")
+    fig.tight_layout()
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
+    os.close(fd)
+    try:
+        fig.savefig(tmp, dpi=120)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    finally:
+        plt.close(fig)
+    return path

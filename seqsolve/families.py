@@ -88,9 +88,12 @@ def permuted_block_designs(
         for r in base:
             r = r.copy()
             k = max(1, int(round(share * len(r) / 2)))
-            for _ in range(k):
-                i, j = rng.integers(len(r), size=2)
-                r[i], r[j] = r[j], r[i]
+            for _ in range(k):  # swaps of differently labelled trials, so each one changes something
+                i = int(rng.integers(len(r)))
+                other = np.flatnonzero(r != r[i])
+                if other.size:
+                    j = int(rng.choice(other))
+                    r[i], r[j] = r[j], r[i]
             runs.append(r)
         problems = check_runs(study, study.rules, runs)
         if problems:

@@ -295,11 +295,19 @@ class Search:
     def sample_starts(
         study: Study, seed: int, earlier: list[list[np.ndarray]], options: SearchOptions
     ) -> list[list[np.ndarray]]:
-        """Diverse valid starting designs (two only when the per-position model is needed)."""
+        """Diverse valid starting designs: samples from CP-SAT (two only when the per-position model
+        is needed), and plain shuffles that happen to pass every rule (common under loose rules;
+        CP-SAT's samples lean toward extreme transition counts, shuffles do not)."""
         n = options.pool if choose_method(study, options.solve) == "counts" else 2
         found = sample_orderings(study, seed, n, earlier, options.solve)
-        taken = {_key(e) for e in earlier}
-        return [d for d in found if _key(d) not in taken] or found
+        judge = Judge(study, earlier)
+        rng = np.random.default_rng([seed, 23])
+        pools = [np.repeat(np.arange(study.facts.n_conditions), c) for c in study.facts.counts]
+        for _ in range(4 * options.pool):
+            runs = [rng.permutation(p) for p in pools]
+            if judge.ok(runs):
+                found.append(runs)
+        return [d for d in found if _key(d) not in judge.taken] or found
 
     def variation(self, runs: list[np.ndarray]) -> list[np.ndarray] | None:
         """A random valid design near runs: a quarter of each run re-solved with a random objective,

@@ -32,7 +32,10 @@ def make_study(
     timing=None,
     analysis=None,
     durations=None,
+    objective=None,
 ):
+    """A study in code. objective: the [objective] section; by default no search (iterations 0),
+    so tests of the solver stay quick; tests of the search pass their own."""
     conds = []
     for i, n in enumerate(counts):
         c = {"name": NAMES[i], "trials": int(n)}
@@ -49,6 +52,7 @@ def make_study(
         "timing": timing or {"tr": 2.0, "soa": 2.0},
         "rules": [r.model_dump(exclude_none=True) if hasattr(r, "model_dump") else r for r in rules],
         "analysis": analysis or {},
+        "objective": {"iterations": 0} if objective is None else objective,
     }
     return study_from_mapping(data)
 

@@ -57,6 +57,8 @@ class SearchOptions:
     window_work: float = 0.1  # CP-SAT deterministic work per neighbourhood
     listing: int = 400  # completions of a small window scored exactly per enumerate step
     kick: int = 8  # failed neighbourhoods in a row before moving away from the best design
+    travel: float = 0.001  # record-to-record travel: moves may fall this fraction below the best score
+    travel_share: float = 0.85  # share of steps that travel once no swap gains
     solve: SolveOptions = field(default_factory=SolveOptions)
 
 
@@ -221,8 +223,12 @@ class Search:
         if starts is None:
             starts = self.starts()
         scores = self.scorer.score_many(starts)
-        first = int(np.argmax(scores))
+        order = np.argsort(-scores, kind="stable")
+        first = int(order[0])
         self.current, self.current_score = starts[first], float(scores[first])
+        self.unused = [starts[i] for i in order[1:]]
+        self.kicks = 0
+        self.tabu: list[tuple[int, int]] = []
         self.best, self.best_score, self.best_scorer = self.current, self.current_score, self.scorer
         history = [(0, time.perf_counter() - t0, self.best_score)]
         it, since, failures, stopped = 0, 0, 0, "iterations"
@@ -241,6 +247,8 @@ class Search:
                     swaps_left = gained
                 elif self.jitter and it % 4 == 0:
                     step, gained = "gaps", self._gap_step()
+                elif self.rng.random() < self.options.travel_share:
+                    step, gained = "travel", self._travel_step()
                 else:
                     step = self._pick()
                     gained = self._window_step() if step == "neighbourhood" else self._enumerate_step()
@@ -360,6 +368,34 @@ class Search:
                 return True
         return False
 
+    def _travel_step(self) -> bool:
+        """Record-to-record travel (Dueck 1993, J. Comput. Phys. 104:86-92): a random valid swap
+        whose score stays within `travel` of the best score (worse than the current one allowed),
+        never undoing one of the last few moves. True if the design moved."""
+        codes = np.concatenate(self.current)
+        pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
+        limit = self.options.swap_sample if self.scorer.fixed else 96
+        if len(pairs) > limit:
+            pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
+        if len(pairs) == 0:
+            return False
+        scores = self.scorer.swap_gains(self.current, pairs)
+        floor = self.best_score - self.options.travel * abs(self.best_score)
+        eligible = np.flatnonzero(scores >= floor)
+        self.rng.shuffle(eligible)
+        for idx in eligible[: self.options.swap_tries]:
+            i, j = (int(x) for x in pairs[idx])
+            if (i, j) in self.tabu:
+                continue
+            cand = codes.copy()
+            cand[i], cand[j] = cand[j], cand[i]
+            runs = self.scorer.split(cand)
+            if self.judge.ok(runs):
+                self.current, self.current_score = runs, float(self.scorer.score(runs))
+                self.tabu = (self.tabu + [(i, j)])[-8:]
+                return True
+        return False
+
     def _neighbourhood(self, size: int) -> tuple[int, np.ndarray]:
         """A run and some of its positions to free (about `size` of them)."""
         run = int(self.rng.choice(len(self.lengths), p=np.asarray(self.lengths) / sum(self.lengths)))
@@ -443,7 +479,14 @@ class Search:
         return True
 
     def _kick(self) -> None:
-        """Move the current design to a random valid neighbour of the best one (score may drop)."""
+        """Leave a local optimum: every third time restart from the next unused starting design
+        (best first), otherwise move to a random valid neighbour of the best one (score may drop)."""
+        self.kicks += 1
+        if self.kicks % 3 == 0 and self.unused:
+            self.current = self.unused.pop(0)
+            self.current_score = self.scorer.score(self.current)
+            self.window = self.options.window
+            return
         run = int(self.rng.integers(len(self.lengths)))
         n = self.lengths[run]
         w = int(min(n, max(2 * self.window, 8)))

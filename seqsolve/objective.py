@@ -190,18 +190,37 @@ class Scorer:
             counterbalance=cb,
         )
 
-    def swap_gains(self, runs: list[np.ndarray], pairs: np.ndarray) -> np.ndarray:
-        """Exact weighted score after swapping each pair of trials (indices into the concatenated runs)."""
+    def swap_gains(self, runs: list[np.ndarray], pairs: np.ndarray, exact: int = 16) -> np.ndarray:
+        """Weighted score after swapping each pair of trials (indices into the concatenated runs).
+
+        Exact for every pair when onsets are fixed. When onsets move with the labels, the pairs
+        are ranked on the current timing and only the best `exact` are scored exactly (on their
+        own schedules); the others get -inf, so no caller ever acts on an inexact score.
+        """
         codes = np.concatenate(runs)
-        if not self.fixed or self.weights.counterbalance:
-            designs = []
-            for i, j in pairs:
+        pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+
+        def swapped(idx):
+            out = []
+            for i, j in pairs[idx]:
                 c = codes.copy()
                 c[i], c[j] = c[j], c[i]
-                designs.append(self.split(c))
-            return self.score_many(designs) if designs else np.zeros(0)
+                out.append(self.split(c))
+            return out
+
+        if len(pairs) == 0:
+            return np.zeros(0)
         det, est = self.evaluator(runs).swap_scores(codes, pairs, self.use_det, self.use_est)
-        return self.combine(det, est, 0.0)
+        if self.fixed:
+            cb = 0.0
+            if self.weights.counterbalance:
+                cb = np.array([self.counterbalance(d) for d in swapped(np.arange(len(pairs)))])
+            return self.combine(det, est, cb)
+        guess = self.combine(det, est, 0.0)
+        top = np.argsort(-guess, kind="stable")[:exact]
+        out = np.full(len(pairs), -np.inf)
+        out[top] = self.score_many(swapped(top))
+        return out
 
     def change_gains(self, runs: list[np.ndarray], trials: np.ndarray | None = None) -> np.ndarray:
         """Local sensitivity: weighted score after changing each trial (or the given trials, indices

@@ -349,9 +349,7 @@ class Search:
     def _swap_step(self) -> bool:
         codes = np.concatenate(self.current)
         pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
-        limit = self.options.swap_sample if self.scorer.use_est or not self.scorer.fixed else len(pairs)
-        if not self.scorer.fixed:
-            limit = min(limit, 96)  # every candidate needs its own schedule here
+        limit = self.options.swap_sample if self.scorer.use_est else len(pairs)
         if len(pairs) > limit:
             pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
         if len(pairs) == 0:
@@ -374,7 +372,7 @@ class Search:
         never undoing one of the last few moves. True if the design moved."""
         codes = np.concatenate(self.current)
         pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
-        limit = self.options.swap_sample if self.scorer.fixed else 96
+        limit = self.options.swap_sample
         if len(pairs) > limit:
             pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
         if len(pairs) == 0:

@@ -63,10 +63,11 @@ def close(a, b):
     return np.allclose(a, b, rtol=1e-9, atol=1e-12)
 
 
+@pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 @pytest.mark.parametrize("case", list(CASES))
-def test_full_and_batched_scores_match_reference(case):
+def test_full_and_batched_scores_match_reference(case, compiled):
     study, setup, layout, codes, rng = build(case)
-    ev = Evaluator(setup, layout, study.facts.n_conditions)
+    ev = Evaluator(setup, layout, study.facts.n_conditions, compiled=compiled)
     designs = [codes] + [rng.permutation(codes) for _ in range(4)]
     det, est = ev.score_many(np.array(designs))
     for d, a, b in zip(designs, det, est):
@@ -74,10 +75,11 @@ def test_full_and_batched_scores_match_reference(case):
         assert close(a, ref[0]) and close(b, ref[1]), (a, b, ref)
 
 
+@pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 @pytest.mark.parametrize("case", list(CASES))
-def test_every_single_change_and_swap_matches_reference(case):
+def test_every_single_change_and_swap_matches_reference(case, compiled):
     study, setup, layout, codes, rng = build(case, seed=1)
-    ev = Evaluator(setup, layout, study.facts.n_conditions)
+    ev = Evaluator(setup, layout, study.facts.n_conditions, compiled=compiled)
     nb = ev.neighbours(codes)
     for i in rng.choice(len(codes), size=6, replace=False):
         for c in range(study.facts.n_conditions):
@@ -107,6 +109,9 @@ def test_singular_design_scores_zero_not_garbage():
     codes = np.tile([0, 1], 20)
     sched = make_schedules(study, [codes], 0)
     layout = make_layout(setup, [sched[0].onsets], [sched[0].n_volumes], trial_durations(study))
-    det, est = Evaluator(setup, layout, 2).score(codes)
-    assert est == 0.0
-    assert np.isfinite(det)
+    for compiled in (True, False):
+        det, est = Evaluator(setup, layout, 2, compiled=compiled).score(codes)
+        assert est == 0.0
+        assert np.isfinite(det)
+        nb = Evaluator(setup, layout, 2, compiled=compiled).neighbours(codes)
+        assert np.isfinite(nb.swap_estimation).all() and (nb.swap_estimation >= 0).all()

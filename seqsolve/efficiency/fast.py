@@ -17,6 +17,7 @@ import numpy as np
 from scipy.linalg import solve_triangular
 from threadpoolctl import ThreadpoolController
 
+from seqsolve.efficiency import kernels
 from seqsolve.efficiency.grid import Layout, fir_bins
 from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
 from seqsolve.efficiency.setup import AnalysisSetup
@@ -119,11 +120,16 @@ class Evaluator:
     layout : timing on the fine grid (see grid.make_layout).
     n_conditions : number of conditions (codes run from 0 to n_conditions - 1).
     circular : treat each run as presented periodically (the response wraps round).
+    compiled : use the numba kernels of kernels.py where they apply (same results; False keeps
+        to the numpy paths, which the tests also check).
     """
 
-    def __init__(self, setup: AnalysisSetup, layout: Layout, n_conditions: int, circular: bool = False):
+    def __init__(
+        self, setup: AnalysisSetup, layout: Layout, n_conditions: int, circular: bool = False, compiled: bool = True
+    ):
         self.setup, self.layout, self.k = setup, layout, n_conditions
         self.circular = circular
+        self.compiled = compiled
         with one_blas_thread():
             nuis = block_nuisance(layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
             self.q = residual_basis(whiten(nuis, setup.ar1, layout.run_lengths))
@@ -345,6 +351,27 @@ class Evaluator:
         x = part.design(codes[None])[0]
         m = x.T @ x
         xp = np.stack([np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs])  # (G, N, p, nb)
+        if self.compiled:
+            # FIR products come from Omega at the trials' volumes (bins of one TR); detection's
+            # from the trials' Gram matrix
+            is_fir = part is self.est
+            if not is_fir or self.setup.fir_step <= self.setup.tr + 1e-9:
+                return kernels.update_scores(
+                    m,
+                    np.ascontiguousarray(xp),
+                    1 if is_fir else 0,
+                    np.zeros((1, 1, 1, 1, 1, 1)) if is_fir else self._gram(part),
+                    self.omega if is_fir else np.zeros((1, 1)),
+                    self.fir_scan if is_fir else np.zeros((1, 1), dtype=np.int64),
+                    part.col.astype(np.int64),
+                    part.group.astype(np.int64),
+                    part.nb,
+                    np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64),
+                    np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64),
+                    np.array([sg for _, _, sg in terms], dtype=float),
+                    np.ascontiguousarray(contrast, dtype=float),
+                    self.setup.criterion == "D",
+                )
         if part.nb == 1 and self.setup.criterion == "A":
             fast = self._woodbury(part, m, xp, terms, contrast, fir)
             if fast is not None:

@@ -1,0 +1,141 @@
+"""Compiled inner loops of the fast evaluator (numba, which seqsolve already has through galois).
+
+Each kernel assembles small information matrices entry by entry and scores them with its own
+Cholesky factorisation, where numpy would pay a call per tiny matrix. They compute exactly what
+fast.py's numpy paths compute; tests/test_efficiency_fast.py holds both to the reference at 1e-9.
+Compiled once per machine (cache=True), a few seconds on first use.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+#: the same singularity rule as fast.RCOND
+RCOND = 1e-10
+
+
+@njit(cache=True)
+def _efficiency(m, contrast, d_criterion, work, half):
+    """A- or D-efficiency of information m for contrast (q, p); 0 when m is singular.
+
+    work (p, p) and half (p, q) are scratch space."""
+    p = m.shape[0]
+    q = contrast.shape[0]
+    # Cholesky m = L L' into the lower triangle of work
+    for j in range(p):
+        s = m[j, j]
+        for k in range(j):
+            s -= work[j, k] * work[j, k]
+        if s <= RCOND * max(m[j, j], 1e-300):
+            return 0.0
+        d = np.sqrt(s)
+        work[j, j] = d
+        for i in range(j + 1, p):
+            t = m[i, j]
+            for k in range(j):
+                t -= work[i, k] * work[j, k]
+            work[i, j] = t / d
+    # half = L^-1 C', skipping each column's leading zeros (C kron I for FIR is mostly zeros)
+    for c in range(q):
+        first = p
+        for i in range(p):
+            if contrast[c, i] != 0.0:
+                first = i
+                break
+        for i in range(first):
+            half[i, c] = 0.0
+        for i in range(first, p):
+            t = contrast[c, i]
+            for k in range(first, i):
+                t -= work[i, k] * half[k, c]
+            half[i, c] = t / work[i, i]
+    if d_criterion:
+        # det(C M^-1 C') = det(half' half): its own Cholesky
+        g = np.empty((q, q))
+        for a in range(q):
+            for b in range(q):
+                t = 0.0
+                for i in range(p):
+                    t += half[i, a] * half[i, b]
+                g[a, b] = t
+        logdet = 0.0
+        for j in range(q):
+            s = g[j, j]
+            for k in range(j):
+                s -= g[j, k] * g[j, k]
+            if s <= 0.0:
+                return 0.0
+            d = np.sqrt(s)
+            logdet += 2.0 * np.log(d)
+            for i in range(j + 1, q):
+                t = g[i, j]
+                for k in range(j):
+                    t -= g[i, k] * g[j, k]
+                g[i, j] = t / d
+        return np.exp(-logdet / q)
+    tr = 0.0
+    for i in range(p):
+        for c in range(q):
+            tr += half[i, c] * half[i, c]
+    return 1.0 / tr
+
+
+@njit(cache=True)
+def update_scores(
+    m0, xp, cross_kind, gram, omega, fir_scan, col, group, nb, conds, trials, signs, contrast, d_criterion
+):
+    """Scores of candidates that each add sign * (trial's regressor) to some conditions' columns.
+
+    m0 (p, p): the current information; xp (G, N, p, nb): X' times each trial's regressor per group;
+    conds, trials (n_cand, T) and signs (T,): the terms of each candidate. Trial products come from
+    gram (G, G, N, nb, N, nb) when cross_kind == 0, or from omega at the trials' FIR volumes
+    (fir_scan (N, nb), -1 outside the run) when cross_kind == 1.
+    """
+    n_cand, n_terms = conds.shape
+    p = m0.shape[0]
+    out = np.empty(n_cand)
+    m = np.empty((p, p))
+    work = np.empty((p, p))
+    half = np.empty((p, contrast.shape[0]))
+    for k in range(n_cand):
+        m[:] = m0
+        for a in range(n_terms):
+            c = conds[k, a]
+            ca = col[c]
+            if ca < 0:
+                continue
+            t = trials[k, a]
+            s = signs[a]
+            g = group[c]
+            for i in range(nb):
+                for j in range(p):
+                    v = s * xp[g, t, j, i]
+                    m[ca + i, j] += v
+                    m[j, ca + i] += v
+        for a in range(n_terms):
+            c1 = conds[k, a]
+            ca = col[c1]
+            if ca < 0:
+                continue
+            t1 = trials[k, a]
+            for e in range(a, n_terms):  # each unordered pair once, added to both triangles
+                c2 = conds[k, e]
+                ce = col[c2]
+                if ce < 0:
+                    continue
+                t2 = trials[k, e]
+                s = signs[a] * signs[e]
+                for i in range(nb):
+                    for j in range(nb):
+                        if cross_kind == 0:
+                            v = gram[group[c1], group[c2], t1, i, t2, j]
+                        else:
+                            v1 = fir_scan[t1, i]
+                            v2 = fir_scan[t2, j]
+                            v = omega[v1, v2] if v1 >= 0 and v2 >= 0 else 0.0
+                        m[ca + i, ce + j] += s * v
+                        if e != a:
+                            m[ce + j, ca + i] += s * v
+        out[k] = _efficiency(m, contrast, d_criterion, work, half)
+    return out

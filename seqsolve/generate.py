@@ -140,6 +140,12 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
         progress(len(study.participants), len(study.participants), "")
     if not out.interrupted:
         _even_out(study, out, setup, search, on_step)
+    timed = [d.label for d in out if d.search and d.search.get("stopped") == "budget"]
+    if timed:
+        out.notes.append(
+            f"the wall-clock budget ended the search of participant(s) {', '.join(timed)}: how far it got "
+            "depends on the machine, so a rerun may give other designs; a budget in iterations repeats exactly"
+        )
     if out.interrupted:
         missing = [d.label for d in out if d.figures is None]
         out.notes.append(

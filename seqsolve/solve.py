@@ -163,6 +163,8 @@ def _params(
     solver.parameters.random_seed = seed
     solver.parameters.max_time_in_seconds = time_limit or options.time_limit
     solver.parameters.max_deterministic_time = work or options.work_limit
+    # Ctrl-C belongs to Python (the search keeps its best design); CP-SAT's own handler would end the process
+    solver.parameters.catch_sigint_signal = False
     return solver
 
 

@@ -237,3 +237,32 @@ iterations = 10
     manifest = json.loads((out / "manifest.json").read_text())
     assert manifest["objective"]["weights"]["detection"] == 0.5
     assert manifest["participants"][0]["search"]["iterations"] == 10
+
+
+def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path):
+    import signal
+    import subprocess
+    import sys
+
+    spec = tmp_path / "s.toml"
+    spec.write_text(
+        '[study]\nname = "t"\ntask = "t"\nparticipants = 3\nruns = 2\n'
+        '[[conditions]]\nname = "a"\ntrials = 20\n[[conditions]]\nname = "b"\ntrials = 20\n'
+        '[[conditions]]\nname = "rest"\ntrials = 20\nbaseline = true\n'
+        '[timing]\ntr = 2.0\nsoa = 2.0\n[[rules]]\nkind = "max-run"\nlength = 2\n'
+        "[objective]\niterations = 100000\nstall = 100000\n"
+    )
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-c", "from seqsolve.cli import main; main()", "generate", str(spec), "-o", str(out)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    for line in proc.stderr:  # wait until the search reports its first step, then press Ctrl-C
+        if "best" in line:
+            break
+    proc.send_signal(signal.SIGINT)
+    stdout, _ = proc.communicate(timeout=300)
+    assert proc.returncode == 0, stdout
+    assert "interrupted" in stdout
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert manifest["objective"]["interrupted"] is True
+    audit = CliRunner().invoke(app, ["audit", str(spec), str(out / "orderings.csv")])
+    assert audit.exit_code == 0, audit.output

@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import sys
 import time
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
@@ -41,6 +42,20 @@ def _progress(started: float):
             )
 
     return show
+
+
+@contextmanager
+def _long_command(display: _StepDisplay):
+    """Clear errors (exit 2/1) and Ctrl-C outside any search (exit 130) for a command with a status line."""
+    try:
+        yield
+    except SeqsolveError as exc:
+        display.end_line()
+        _fail(exc)
+    except KeyboardInterrupt:
+        display.end_line()
+        typer.echo("interrupted; nothing was written", err=True)
+        raise typer.Exit(130) from None
 
 
 class _StepDisplay:
@@ -112,7 +127,7 @@ def generate(
         raise typer.Exit(2)
     started = time.perf_counter()
     display = _StepDisplay()
-    try:
+    with _long_command(display):
         study = load_study(spec, seed=seed)
         steps = study.spec.objective.iterations if iterations is None else iterations
         typer.echo(
@@ -131,13 +146,6 @@ def generate(
             on_step=display,
             front=front,
         )
-    except SeqsolveError as exc:
-        display.end_line()
-        _fail(exc)
-    except KeyboardInterrupt:
-        display.end_line()
-        typer.echo("interrupted; nothing was written", err=True)
-        raise typer.Exit(130) from None
     display.end_line()
     if designs and designs[0].figures is not None:
         typer.echo(_designs_table(designs))
@@ -358,7 +366,7 @@ def compare(
         typer.echo("error: --front needs at least 2 points (or 0 for none)", err=True)
         raise typer.Exit(2)
     display = _StepDisplay()
-    try:
+    with _long_command(display):
         if plot is not None:
             check_plot_path(plot, force)
         study = load_study(spec)
@@ -366,13 +374,6 @@ def compare(
         display.end_line()
         if plot is not None:
             draw(result, plot, study.spec.study.name)
-    except SeqsolveError as exc:
-        display.end_line()
-        _fail(exc)
-    except KeyboardInterrupt:
-        display.end_line()
-        typer.echo("interrupted; nothing was written", err=True)
-        raise typer.Exit(130) from None
     if as_json:
         typer.echo(
             json.dumps(

@@ -137,7 +137,11 @@ def m_sequence_designs(study: Study, seed: int, n_designs: int = 10) -> Family:
     lengths = facts.counts.sum(axis=1)
     n = max(1, round(math.log(int(lengths[0]) + 1, q)))
     if any(int(L) != q**n - 1 for L in lengths):
-        fam.note = f"runs must have q^n - 1 trials for q = {q} (e.g. {q**n - 1} or {q ** (n + 1) - 1}); they have {sorted(set(lengths.tolist()))}"
+        below = max(1, int(math.floor(math.log(int(lengths[0]) + 1, q) + 1e-9)))
+        fam.note = (
+            f"runs must have q^n - 1 trials for q = {q} (e.g. {q**below - 1} or {q ** (below + 1) - 1}); "
+            f"they have {sorted(set(lengths.tolist()))}"
+        )
         return fam
     zero = facts.baseline
     if zero is None:

@@ -167,6 +167,13 @@ SPECS = [
         id="contrast-symbol",
     ),
     pytest.param(BASE + "\n[analysis]\nar1 = 1.5\n", ["analysis.ar1", "less than 1"], id="analysis-ar1"),
+    pytest.param(
+        BASE + "\n[objective]\ndetection = 0\nestimation = 0\n",
+        ["objective", "at least one of detection, estimation, counterbalance"],
+        id="objective-no-weight",
+    ),
+    pytest.param(BASE + "\n[objective]\nestimaton = 1.0\n", ["objective.estimaton", "estimation"], id="objective-typo"),
+    pytest.param(BASE + "\n[objective]\niterations = -5\n", ["objective.iterations"], id="objective-iterations"),
 ]
 
 

@@ -226,9 +226,23 @@ class Evaluator:
         return raw
 
     def _omega(self) -> np.ndarray:
-        """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries."""
+        """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries.
+
+        Also keeps what kernels.fir_scores needs: the volumes' (trial, lag) hits, the tridiagonal
+        W'W and W'Q (None where the compiled path does not apply)."""
         eye = np.eye(self.layout.n_scans)
         w = whiten(eye, self.setup.ar1, self.layout.run_lengths)
+        self.fir_kernel = None
+        if self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9:
+            wtw = w.T @ w
+            n = len(wtw)
+            diag, off = np.diag(wtw).copy(), np.append(np.diag(wtw, 1), 0.0)
+            if np.allclose(wtw, np.diag(diag) + np.diag(off[:-1], 1) + np.diag(off[:-1], -1), rtol=0, atol=0):
+                t, lag = np.nonzero(self.fir_scan >= 0)
+                scan = self.fir_scan[t, lag]
+                order = np.argsort(scan, kind="stable")
+                ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
+                self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, w.T @ self.q)
         rw = w - self.q @ (self.q.T @ w)
         return rw.T @ rw
 
@@ -255,7 +269,21 @@ class Evaluator:
                 xd = self.det.design(codes)
                 md = np.swapaxes(xd, 1, 2) @ xd
                 det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
-            if estimation:
+            if estimation and self.fir_kernel is not None:
+                ptr, trial, lag, diag, off, qw = self.fir_kernel
+                est = kernels.fir_scores(
+                    np.ascontiguousarray(codes, dtype=np.int64),
+                    self.est.col.astype(np.int64),
+                    ptr,
+                    trial,
+                    lag,
+                    diag,
+                    off,
+                    np.ascontiguousarray(qw),
+                    np.ascontiguousarray(self.c_est, dtype=float),
+                    self.setup.criterion == "D",
+                )
+            elif estimation:
                 est, _ = batch_efficiency(self._fir_information(codes), self.c_est, self.setup.criterion)
         return det, est
 

@@ -139,3 +139,52 @@ def update_scores(
                             m[ce + j, ca + i] += s * v
         out[k] = _efficiency(m, contrast, d_criterion, work, half)
     return out
+
+
+@njit(cache=True)
+def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, contrast, d_criterion):
+    """FIR estimation efficiency of many orderings (bins of one TR), from which volume each
+    (trial, lag) falls in: M = X'W'WX - Y'Y with Y = (W'Q)'X.
+
+    scan_ptr (n + 1,), hit_trial, hit_lag: the (trial, lag) hits of each volume, grouped by volume;
+    diag, off (n,): the tridiagonal W'W of the AR(1) filter (off[s] pairs volume s with s + 1);
+    qw (n, r): W'Q, the whitened nuisance basis taken back through the filter.
+    """
+    n_designs = codes.shape[0]
+    n, r = qw.shape
+    p = contrast.shape[1]
+    out = np.empty(n_designs)
+    m = np.empty((p, p))
+    y = np.empty((r, p))
+    work = np.empty((p, p))
+    half = np.empty((p, contrast.shape[0]))
+    for b in range(n_designs):
+        m[:] = 0.0
+        y[:] = 0.0
+        for s in range(n):
+            for h1 in range(scan_ptr[s], scan_ptr[s + 1]):
+                c1 = col[codes[b, hit_trial[h1]]]
+                if c1 < 0:
+                    continue
+                j1 = c1 + hit_lag[h1]
+                for a in range(r):
+                    y[a, j1] += qw[s, a]
+                for h2 in range(scan_ptr[s], scan_ptr[s + 1]):
+                    c2 = col[codes[b, hit_trial[h2]]]
+                    if c2 >= 0:
+                        m[j1, c2 + hit_lag[h2]] += diag[s]
+                if s + 1 < n and off[s] != 0.0:
+                    for h2 in range(scan_ptr[s + 1], scan_ptr[s + 2]):
+                        c2 = col[codes[b, hit_trial[h2]]]
+                        if c2 >= 0:
+                            j2 = c2 + hit_lag[h2]
+                            m[j1, j2] += off[s]
+                            m[j2, j1] += off[s]
+        for i in range(p):
+            for j in range(p):
+                t = 0.0
+                for a in range(r):
+                    t += y[a, i] * y[a, j]
+                m[i, j] -= t
+        out[b] = _efficiency(m, contrast, d_criterion, work, half)
+    return out

@@ -156,7 +156,7 @@ def _estimation_bound(study: Study, setup: AnalysisSetup, idx: list[int], n_volu
     counts = study.facts.counts[idx][:, list(setup.modelled)].sum(axis=0)
     # nuisance beyond the intercept (drifts, prewhitening) only lowers efficiency: the bound holds
     if study.spec.analysis.contrasts == "each-vs-baseline":
-        return estimation_bound_identity(counts, n_volumes, setup.fir_lags)
+        return estimation_bound_identity(counts, n_volumes, setup.fir_lags, once_through_runs=len(idx))
     return None
 
 

@@ -7,6 +7,11 @@ and M_jj = diag(n) - n n'/N, whose inverse is diag(1/n) + J/n_0 (Sherman-Morriso
   pairwise contrasts: e <= 1 / (k (Q - 1) sum_i 1/n_i)
 Over all allocations with sum n_i + n_0 = N, the identity bound is largest at n_i = N/(Q + sqrt(Q)),
 n_0 = sqrt(Q) n_i, giving N / (k Q (1 + sqrt(Q))^2).
+Presented once through (not periodically), lag j of a run has no trial in its first j volumes and
+loses the trials whose lag-j volume falls past the end: per lag n_i(j) <= n_i and n_0(j) <= n_0 + j
+per run, so the identity bound becomes 1 / sum_j (sum_i 1/n_i + Q/(n_0 + j R)) with R runs. (The
+periodic form can be beaten once through: the search found such a design.) The pairwise bound
+needs no change: it only grows with 1/n_i(j).
 Detection of one event type in a periodic design of N volumes with n events and an intercept:
   x' (I - J/N) x = sum_{f != 0} |S(f)|^2 |G(f)|^2 / N <= max_f |G(f)|^2 * n (1 - n/N)   (Parseval),
 with G the DFT of the volume-sampled response to one trial.
@@ -17,12 +22,17 @@ from __future__ import annotations
 import numpy as np
 
 
-def estimation_bound_identity(counts: np.ndarray, n_volumes: int, lags: int) -> float:
+def estimation_bound_identity(counts: np.ndarray, n_volumes: int, lags: int, once_through_runs: int = 0) -> float:
+    """Identity-contrast FIR bound; once_through_runs: runs presented once through (0: periodic)."""
     counts = np.asarray(counts, dtype=float)
     n0 = n_volumes - counts.sum()
-    if n0 <= 0:
+    if n0 <= 0 and once_through_runs == 0:
         return float("inf")
-    return float(1.0 / (lags * ((1.0 / counts).sum() + len(counts) / n0)))
+    j = np.arange(lags)
+    extra = n0 + j * once_through_runs
+    if (extra <= 0).any():
+        return float("inf")
+    return float(1.0 / ((1.0 / counts).sum() * lags + (len(counts) / extra).sum()))
 
 
 def estimation_bound_pairwise(counts: np.ndarray, lags: int) -> float:

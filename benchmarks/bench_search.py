@@ -24,6 +24,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from seqsolve.baselines import genetic, shuffle_and_reject  # noqa: E402
+from seqsolve.efficiency.limits import estimation_bound_identity  # noqa: E402
 from seqsolve.efficiency.setup import make_setup  # noqa: E402
 from seqsolve.families import block_designs, m_sequence_designs  # noqa: E402
 from seqsolve.objective import References, Scorer, Weights  # noqa: E402
@@ -93,6 +94,10 @@ def run_scenario(name: str, budgets: list[float]) -> dict:
         fam = m_sequence_designs(study, seed)
         extra["m-sequence estimation"] = max(scorer.figures(d).estimation for d in fam.designs)
         extra["seqsolve estimation"] = scorer.figures(res.runs).estimation
+        counts = study.facts.counts[0][list(setup.modelled)]
+        bound = estimation_bound_identity(counts, int(study.facts.counts.sum()), setup.fir_lags, once_through_runs=1)
+        # the score here is estimation / random mean: no method can score above this
+        extra["highest score possible (estimation bound, limits.py)"] = bound / refs.random_estimation
     if name == "D":
         fam = block_designs(study)
         extra["block detection (valid sizes)"] = max(scorer.figures(d).detection for d in fam.designs)

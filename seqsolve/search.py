@@ -36,7 +36,7 @@ from ortools.sat.python import cp_model
 from seqsolve.model import OrderingModel
 from seqsolve.objective import Figures, Scorer
 from seqsolve.rules.participants_differ import ParticipantsDiffer
-from seqsolve.solve import SolveOptions, _params, check_runs, choose_method, derive_seed, sample_orderings
+from seqsolve.solve import SolveOptions, _params, check_runs, choose_method, sample_orderings
 from seqsolve.spec import Study
 
 #: score gains below this are treated as no gain (scores are fractions near 1)
@@ -498,10 +498,6 @@ class Search:
             self.current, self.scorer = found[-1], self.best_scorer
             self.current_score = self.scorer.score(found[-1])
         self.window = self.options.window
-
-
-def participant_seed(study: Study, index: int) -> int:
-    return derive_seed(study.spec.study.seed, index)
 
 
 __all__ = ["Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver"]

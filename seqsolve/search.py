@@ -6,7 +6,10 @@ One participant's search (`steer`):
    best-scoring one becomes the current design.
 2. Each step is one of
    - swap: score every same-run swap of differently labelled trials at once (exact, fast
-     evaluator) and take the best-gaining swap that passes every rule check;
+     evaluator; a random sample of them when estimation is weighted) and take the best-gaining
+     swap that passes every rule check;
+   - travel: once no swap gains, record-to-record travel (Dueck 1993): a random valid swap whose
+     score stays within 0.1 % of the best, never undoing a recent one;
    - neighbourhood: free some positions of one run (a window, a scattered subset, or the trials
      of two conditions within a stretch), keep everything else fixed, and let CP-SAT choose the
      freed labels to maximise sum gain[p, c] * x[p, c], where gain[p, c] is the exact change of
@@ -14,10 +17,13 @@ One participant's search (`steer`):
      valid by construction; it is re-scored exactly and kept only if better;
    - gaps (jittered timing only): swap two gaps within a run and re-score exactly; the declared
      gap distribution and the run length stay as they were.
-   Swap steps run while some valid swap gains. Neighbourhoods grow after failures and shrink
-   when CP-SAT uses its whole work limit. After `kick` failed neighbourhoods in a row, the
-   current design moves to a random valid neighbour of the best one (a neighbourhood solved with
-   a random objective), to leave a local optimum; the best design is kept apart.
+   - enumerate: a small window's valid completions listed by CP-SAT and all scored exactly.
+   Swap steps run while some valid swap gains; then travel takes most steps and the two CP-SAT
+   neighbourhood kinds the rest, chosen by their success so far. Neighbourhoods grow after
+   failures and shrink when CP-SAT uses its whole work limit. After `kick` failed neighbourhoods
+   in a row, the current design moves to a random valid neighbour of the best one (a
+   neighbourhood solved with a random objective) or, every third time, to an unused start; the
+   best design is kept apart.
 3. Stop: the iteration budget, `stall` steps without gain, the wall-clock budget, or Ctrl-C.
 
 Everything depends on the seed and the iteration count only (one CP-SAT worker, deterministic
@@ -212,9 +218,8 @@ class Search:
         self.tries = {"neighbourhood": [1, 2], "enumerate": [1, 2]}  # [gains + 1, tries + 2] per kind
         self.jitter = scorer.gaps is not None and any(len(np.unique(np.round(g, 6))) > 1 for g in scorer.gaps)
         # same-run pairs of trials (global indices)
-        self.pairs = np.concatenate(
-            [np.column_stack(np.triu_indices(n, 1)) + off for n, off in zip(self.lengths, self.offsets) if n > 1]
-        )
+        blocks = [np.column_stack(np.triu_indices(n, 1)) + off for n, off in zip(self.lengths, self.offsets) if n > 1]
+        self.pairs = np.concatenate(blocks) if blocks else np.zeros((0, 2), dtype=np.int64)
 
     # -- the loop -----------------------------------------------------------------------------
 

@@ -1,9 +1,9 @@
 """Efficiency-steered search: CP-SAT keeps every candidate valid, the scorer says which is better.
 
-One participant's search (`steer`):
+One participant's search (`Search.run`):
 
-1. Start: a pool of diverse valid designs sampled from CP-SAT (random objectives and seeds); the
-   best-scoring one becomes the current design.
+1. Start: a pool of diverse valid designs sampled from CP-SAT (random objectives and seeds), and
+   shuffles that pass every rule; the best-scoring one becomes the current design.
 2. Each step is one of
    - swap: score every same-run swap of differently labelled trials at once (exact, fast
      evaluator; a random sample of them when estimation is weighted) and take the best-gaining
@@ -16,7 +16,7 @@ One participant's search (`steer`):
      the score when position p alone takes condition c (the local sensitivity). The answer is
      valid by construction; it is re-scored exactly and kept only if better;
    - gaps (jittered timing only): swap two gaps within a run and re-score exactly; the declared
-     gap distribution and the run length stay as they were.
+     gap distribution and the run length stay as they were;
    - enumerate: a small window's valid completions listed by CP-SAT and all scored exactly.
    Swap steps run while some valid swap gains; then travel takes most steps and the two CP-SAT
    neighbourhood kinds the rest, chosen by their success so far. Neighbourhoods grow after

@@ -155,7 +155,7 @@ def generate(
         f"wrote {len(designs)} participant design(s) to {out}/ in {time.perf_counter() - started:.1f} s "
         f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks"
     )
-    extra = f", {out}/front.tsv" if front and "front interrupted: front.tsv not written" not in designs.notes else ""
+    extra = f", {out}/front.tsv" if (out / "front.tsv").exists() else ""
     typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv{extra}")
 
 

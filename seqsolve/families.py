@@ -43,7 +43,7 @@ class Family:
         return bool(self.designs)
 
 
-def _first_problem(study: Study, violations: list[Violation]) -> str:
+def _first_problem(violations: list[Violation]) -> str:
     v = violations[0]
     return f"{v.rule}: {v.found}"
 
@@ -58,7 +58,7 @@ def block_designs(study: Study) -> Family:
         runs = [block_ordering(c, study.facts.baseline, b) for c in counts]
         problems = check_runs(study, study.rules, runs)
         if problems:
-            refused.append((b, _first_problem(study, problems)))
+            refused.append((b, _first_problem(problems)))
             continue
         fam.designs.append(runs)
         fam.labels.append(f"blocks of {b}")
@@ -97,7 +97,7 @@ def permuted_block_designs(
             runs.append(r)
         problems = check_runs(study, study.rules, runs)
         if problems:
-            problem = problem or _first_problem(study, problems)
+            problem = problem or _first_problem(problems)
             continue
         fam.designs.append(runs)
         fam.labels.append(f"{share:.0%} swapped")
@@ -166,7 +166,7 @@ def m_sequence_designs(study: Study, seed: int, n_designs: int = 10) -> Family:
         runs = [np.roll(base, -int(rng.integers(len(base)))) for _ in lengths]
         problems = check_runs(study, study.rules, runs)
         if problems:
-            problem = problem or _first_problem(study, problems)
+            problem = problem or _first_problem(problems)
             continue
         fam.designs.append(runs)
         fam.labels.append("m-sequence")

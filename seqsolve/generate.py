@@ -43,6 +43,7 @@ class Design:
     seconds: float
     figures: Figures | None = None
     search: dict | None = None  # iterations, why it stopped, improving steps by kind
+    gaps: list[np.ndarray] | None = None  # the gaps the search settled on (jittered timing)
 
 
 class StudyDesigns(list):
@@ -175,8 +176,7 @@ def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_ste
         for i in low:
             d = designs[i]
             others = [x.runs for j, x in enumerate(designs) if j != i]
-            gaps = search_gaps(d) if study.spec.timing.soa is None else None
-            scorer = Scorer(study, designs.weights, designs.references, d.seed, gaps, setup)
+            scorer = Scorer(study, designs.weights, designs.references, d.seed, d.gaps, setup)
             s = Search(study, scorer, d.label, d.seed + 1, others, search, on_step)
             start = s.variation(best.runs)
             if start is None:
@@ -186,7 +186,15 @@ def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_ste
                 schedules = make_schedules(study, result.runs, d.seed, result.gaps)
                 info = dict(d.search or {}, rescued_from=best.label, iterations_rescue=result.iterations)
                 designs[i] = Design(
-                    d.label, d.seed, d.method, result.runs, schedules, d.seconds + result.seconds, result.figures, info
+                    d.label,
+                    d.seed,
+                    d.method,
+                    result.runs,
+                    schedules,
+                    d.seconds + result.seconds,
+                    result.figures,
+                    info,
+                    result.gaps,
                 )
     best = max(d.figures.score for d in designs)
     worst = min(d.figures.score for d in designs)
@@ -195,13 +203,6 @@ def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_ste
             f"spread: the lowest participant scores {worst / best:.1%} of the best, below the "
             f"{floor_frac:.0%} asked for by objective.spread; more iterations may close the gap"
         )
-
-
-def search_gaps(d: Design) -> list[np.ndarray] | None:
-    """The gaps of a design's schedules (None under a fixed soa)."""
-    if not d.schedules or len(d.schedules[0].onsets) < 2:
-        return None
-    return [np.diff(s.onsets) - s.durations[:-1] for s in d.schedules]
 
 
 def efficiency_summary(study: Study, design: Design) -> dict:

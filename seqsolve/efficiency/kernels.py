@@ -16,26 +16,35 @@ RCOND = 1e-10
 
 
 @njit(cache=True)
+def _cholesky(a, out, rcond):
+    """Lower Cholesky factor of a into out; False when a pivot squared falls to rcond * its
+    diagonal entry or below (the matrix counts as singular)."""
+    n = a.shape[0]
+    for j in range(n):
+        s = a[j, j]
+        for k in range(j):
+            s -= out[j, k] * out[j, k]
+        if s <= rcond * max(a[j, j], 1e-300):
+            return False
+        d = np.sqrt(s)
+        out[j, j] = d
+        for i in range(j + 1, n):
+            t = a[i, j]
+            for k in range(j):
+                t -= out[i, k] * out[j, k]
+            out[i, j] = t / d
+    return True
+
+
+@njit(cache=True)
 def _efficiency(m, contrast, d_criterion, work, half):
     """A- or D-efficiency of information m for contrast (q, p); 0 when m is singular.
 
     work (p, p) and half (p, q) are scratch space."""
     p = m.shape[0]
     q = contrast.shape[0]
-    # Cholesky m = L L' into the lower triangle of work
-    for j in range(p):
-        s = m[j, j]
-        for k in range(j):
-            s -= work[j, k] * work[j, k]
-        if s <= RCOND * max(m[j, j], 1e-300):
-            return 0.0
-        d = np.sqrt(s)
-        work[j, j] = d
-        for i in range(j + 1, p):
-            t = m[i, j]
-            for k in range(j):
-                t -= work[i, k] * work[j, k]
-            work[i, j] = t / d
+    if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle
+        return 0.0
     # half = L^-1 C', skipping each column's leading zeros (C kron I for FIR is mostly zeros)
     for c in range(q):
         first = p
@@ -51,7 +60,7 @@ def _efficiency(m, contrast, d_criterion, work, half):
                 t -= work[i, k] * half[k, c]
             half[i, c] = t / work[i, i]
     if d_criterion:
-        # det(C M^-1 C') = det(half' half): its own Cholesky
+        # det(C M^-1 C') = det(half' half), from its own Cholesky factor
         g = np.empty((q, q))
         for a in range(q):
             for b in range(q):
@@ -59,20 +68,12 @@ def _efficiency(m, contrast, d_criterion, work, half):
                 for i in range(p):
                     t += half[i, a] * half[i, b]
                 g[a, b] = t
+        gl = np.empty((q, q))
+        if not _cholesky(g, gl, 0.0):
+            return 0.0
         logdet = 0.0
         for j in range(q):
-            s = g[j, j]
-            for k in range(j):
-                s -= g[j, k] * g[j, k]
-            if s <= 0.0:
-                return 0.0
-            d = np.sqrt(s)
-            logdet += 2.0 * np.log(d)
-            for i in range(j + 1, q):
-                t = g[i, j]
-                for k in range(j):
-                    t -= g[i, k] * g[j, k]
-                g[i, j] = t / d
+            logdet += 2.0 * np.log(gl[j, j])
         return np.exp(-logdet / q)
     tr = 0.0
     for i in range(p):

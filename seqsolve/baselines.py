@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from seqsolve.objective import Scorer
-from seqsolve.search import Judge
+from seqsolve.search import Judge, shuffled
 from seqsolve.solve import derive_seed, sample_orderings
 from seqsolve.spec import Study
 
@@ -71,12 +71,11 @@ def shuffle_and_reject(
     if budget is None and evaluations is None:
         raise ValueError("give a budget or an evaluation count")
     rng = np.random.default_rng([seed, 11])
-    pools = [np.repeat(np.arange(study.facts.n_conditions), n) for n in study.facts.counts]
     trace, t0 = Trace("shuffle-and-reject"), time.perf_counter()
     while not _done(t0, budget, trace, evaluations):
         valid = []
         for _ in range(batch):
-            runs = [rng.permutation(p) for p in pools]
+            runs = shuffled(study, rng)
             trace.tried += 1
             if judge.ok(runs):
                 valid.append(runs)
@@ -142,10 +141,9 @@ def genetic(
     s = settings or GeneticSettings()
     rng = np.random.default_rng([seed, 13])
     trace, t0 = Trace("genetic algorithm"), time.perf_counter()
-    pools = [np.repeat(np.arange(study.facts.n_conditions), n) for n in study.facts.counts]
     population: list[list[np.ndarray]] = []
     for _ in range(20 * s.population):  # shuffles first
-        runs = [rng.permutation(p) for p in pools]
+        runs = shuffled(study, rng)
         trace.tried += 1
         if judge.ok(runs):
             population.append(runs)

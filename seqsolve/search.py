@@ -108,6 +108,11 @@ class Judge:
         return _key(runs) not in self.taken  # every participant gets a design of their own
 
 
+def shuffled(study: Study, rng: np.random.Generator) -> list[np.ndarray]:
+    """Each run's trials in a random order (the counts of the spec; rules not looked at)."""
+    return [rng.permutation(np.repeat(np.arange(study.facts.n_conditions), n)) for n in study.facts.counts]
+
+
 def _key(runs: list[np.ndarray]) -> tuple:
     return tuple(tuple(int(c) for c in r) for r in runs)
 
@@ -315,9 +320,8 @@ class Search:
         found = sample_orderings(study, seed, n, earlier, options.solve)
         judge = Judge(study, earlier)
         rng = np.random.default_rng([seed, 23])
-        pools = [np.repeat(np.arange(study.facts.n_conditions), c) for c in study.facts.counts]
         for _ in range(4 * options.pool):
-            runs = [rng.permutation(p) for p in pools]
+            runs = shuffled(study, rng)
             if judge.ok(runs):
                 found.append(runs)
         return [d for d in found if _key(d) not in judge.taken] or found
@@ -505,4 +509,4 @@ class Search:
         self.window = self.options.window
 
 
-__all__ = ["Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver"]
+__all__ = ["Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver", "shuffled"]

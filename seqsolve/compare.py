@@ -80,24 +80,27 @@ def compare(
     """Build and score every family, and seqsolve's front (front_points = 0: no front)."""
     setup = make_setup(study)
     seed = derive_seed(study.spec.study.seed, 0)
-    families = [block_designs(study)]
-    blocks = families[0]
-    best_block = None
     randoms = random_valid_designs(study, seed, samples)
     gaps = draw_gaps(study, randoms.designs[0], seed)
     refs = References.for_study(study, setup, seed)
     scorer = Scorer(study, Weights.of(1.0, 1.0), refs, seed, gaps, setup)
-    if blocks.designs:
-        figs = [scorer.figures(d) for d in blocks.designs]
-        best_block = blocks.designs[int(np.argmax([f.detection for f in figs]))]
-    families.append(permuted_block_designs(study, best_block, seed))
-    families.append(m_sequence_designs(study, seed))
-    families.append(randoms)
-    out = Comparison(refs, families)
-    for fam in families:
+    out = Comparison(refs, [])
+
+    def add(fam: Family) -> list[Point]:
+        out.families.append(fam)
+        pts = []
         for d, lab in zip(fam.designs, fam.labels):
             f = scorer.figures(d)
-            out.points.append(Point(fam.name, lab, f.detection_vs_block, f.estimation_vs_random))
+            pts.append(Point(fam.name, lab, f.detection_vs_block, f.estimation_vs_random))
+        out.points += pts
+        return pts
+
+    blocks = block_designs(study)
+    block_points = add(blocks)
+    best_block = blocks.designs[int(np.argmax([p.detection for p in block_points]))] if block_points else None
+    add(permuted_block_designs(study, best_block, seed))
+    add(m_sequence_designs(study, seed))
+    add(randoms)
     if front_points:
         out.front = trade_off_front(study, front_points, search, 0, on_step)
         for i, p in enumerate(out.front, start=1):

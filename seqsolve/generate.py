@@ -115,22 +115,20 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
         seed = derive_seed(study.spec.study.seed, i)
         earlier = [d.runs for d in out]
         t0 = time.perf_counter()
+        args = (study, label, seed, method, earlier, options, t0)
+        if out.interrupted:
+            out.append(_unsearched(*args))
+            continue
         try:
-            if out.interrupted:
-                raise KeyboardInterrupt  # the user asked to stop: no more searching
             starts = Search.sample_starts(study, seed, earlier, search)
             gaps = draw_gaps(study, starts[0], seed)
             if out.references is None:  # one yardstick for every participant: the first's timing
                 out.references = References.for_study(study, setup, seed)
             scorer = Scorer(study, weights, out.references, seed, gaps, setup)
             result = Search(study, scorer, label, seed, earlier, search, on_step).run(starts)
-        except KeyboardInterrupt:
-            if out.interrupted and search.iterations == 0:
-                raise
+        except KeyboardInterrupt:  # stopped before this participant's search began
             out.interrupted = True
-            runs = sample_orderings(study, seed, 1, earlier, options)[0]
-            schedules = make_schedules(study, runs, seed)
-            out.append(Design(label, seed, method, runs, schedules, time.perf_counter() - t0))
+            out.append(_unsearched(*args))
             continue
         if result.stopped == "interrupted":
             out.interrupted = True
@@ -154,6 +152,12 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
             + (f"; participants {', '.join(missing)} got a valid design without search" if missing else "")
         )
     return out
+
+
+def _unsearched(study, label, seed, method, earlier, options, t0) -> Design:
+    """A valid design without search, for participants after the user's stop."""
+    runs = sample_orderings(study, seed, 1, earlier, options)[0]
+    return Design(label, seed, method, runs, make_schedules(study, runs, seed), time.perf_counter() - t0)
 
 
 #: rounds of rescue for participants below the spread floor

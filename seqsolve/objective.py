@@ -104,7 +104,6 @@ class Scorer:
         self.lengths = [int(n) for n in study.facts.counts.sum(axis=1)]
         self.splits = np.cumsum(self.lengths)[:-1]
         self._evaluator: Evaluator | None = None
-        self._template: list[np.ndarray] | None = None
         self.use_det = weights.detection > 0
         self.use_est = weights.estimation > 0
 

@@ -14,6 +14,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import sparse
 from scipy.linalg import solve_triangular
 from threadpoolctl import ThreadpoolController
 
@@ -144,6 +145,9 @@ class Evaluator:
             self.omega = self._omega()
         self.c_det = setup.detection_contrast()
         self.c_est = setup.estimation_contrast()
+        self.k_det = kernels.prepare_contrast(self.c_det)
+        self.k_est = kernels.prepare_contrast(self.c_est)
+        self.band = self._band() if compiled else None
 
     # -- building the filtered trial regressors ------------------------------------------------
 
@@ -182,15 +186,65 @@ class Evaluator:
             row += len(scans)
         return out
 
-    def _detection_part(self) -> _Part:
+    def _duration_groups(self) -> tuple[list[int], np.ndarray]:
+        """The distinct boxcar lengths (in order of first use) and each condition's group among them."""
         lens = self.layout.box_len
         groups, group = [], np.zeros(self.k, dtype=int)
         for c in range(self.k):
             if lens[c] not in groups:
                 groups.append(int(lens[c]))
             group[c] = groups.index(int(lens[c]))
+        return groups, group
+
+    def _detection_part(self) -> _Part:
+        groups, group = self._duration_groups()
         regs = [self._filter(self._responses(L)) for L in groups]
         return _Part(regs, group, self.setup.modelled, self.k)
+
+    def _band(self) -> tuple[np.ndarray, ...]:
+        """What kernels.band_scores needs: the products of trials whose whitened responses overlap,
+        by diagonal (trial i with trial i + d) and, for pairs far apart in a circular run, as a
+        list; and the responses' products with Q."""
+        nb = self.det.nb
+        lens, _ = self._duration_groups()
+        raw = [whiten(self._responses(L), self.setup.ar1, self.layout.run_lengths) for L in lens]
+        n, n_trials = raw[0].shape[:2]
+        flat = [sparse.csc_matrix(r.reshape(n, n_trials * nb)) for r in raw]
+        prods = [[(a.T @ b).tocoo() for b in flat] for a in flat]  # exact zeros where no overlap
+        gap = np.concatenate([pr.col // nb - pr.row // nb for row in prods for pr in row])
+        gap = gap[gap >= 0]
+        near = gap <= n_trials // 2 if self.circular else np.ones(gap.shape, dtype=bool)
+        width = int(gap[near].max()) + 1 if near.any() else 1
+        groups = len(lens)
+        band = np.zeros((width, n_trials, groups, groups, nb, nb))
+        far_keys = np.unique(
+            np.concatenate(
+                [
+                    ((pr.row // nb) * n_trials + pr.col // nb)[pr.col // nb - pr.row // nb >= width]
+                    for row in prods
+                    for pr in row
+                ]
+            )
+        )
+        far = np.zeros((len(far_keys), groups, groups, nb, nb))
+        for g, row in enumerate(prods):
+            for h, pr in enumerate(row):
+                i, j = pr.row // nb, pr.col // nb
+                d = j - i
+                inside = (d >= 0) & (d < width)
+                band[d[inside], i[inside], g, h, pr.row[inside] % nb, pr.col[inside] % nb] = pr.data[inside]
+                out = d >= width
+                k = np.searchsorted(far_keys, i[out] * n_trials + j[out])
+                far[k, g, h, pr.row[out] % nb, pr.col[out] % nb] = pr.data[out]
+        band[0] *= 0.5  # band_scores adds each product's transpose
+        qr = np.stack([np.einsum("nib,nr->ibr", r, self.q) for r in raw], axis=1)  # (N, G, nb, r)
+        return (
+            band,
+            (far_keys // n_trials).astype(np.int64),
+            (far_keys % n_trials).astype(np.int64),
+            far,
+            np.ascontiguousarray(qr),
+        )
 
     def _fir_hits(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(volume, trial, lag) of every FIR bin that a volume falls in, the reference's rule."""
@@ -265,7 +319,17 @@ class Evaluator:
         codes = np.atleast_2d(codes)
         det = est = np.full(codes.shape[0], np.nan)
         with one_blas_thread():
-            if detection:
+            if detection and self.band is not None:
+                det = kernels.band_scores(
+                    np.ascontiguousarray(codes, dtype=np.int64),
+                    self.det.col.astype(np.int64),
+                    self.det.group.astype(np.int64),
+                    self.det.nb,
+                    *self.band,
+                    *self.k_det,
+                    self.setup.criterion == "D",
+                )
+            elif detection:
                 xd = self.det.design(codes)
                 md = np.swapaxes(xd, 1, 2) @ xd
                 det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
@@ -280,7 +344,7 @@ class Evaluator:
                     diag,
                     off,
                     np.ascontiguousarray(qw),
-                    np.ascontiguousarray(self.c_est, dtype=float),
+                    *self.k_est,
                     self.setup.criterion == "D",
                 )
             elif estimation:
@@ -397,7 +461,7 @@ class Evaluator:
                     np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64),
                     np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64),
                     np.array([sg for _, _, sg in terms], dtype=float),
-                    np.ascontiguousarray(contrast, dtype=float),
+                    *kernels.prepare_contrast(contrast),
                     self.setup.criterion == "D",
                 )
         if part.nb == 1 and self.setup.criterion == "A":

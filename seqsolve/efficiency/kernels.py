@@ -14,8 +14,11 @@ from numba import njit
 #: the same singularity rule as fast.RCOND
 RCOND = 1e-10
 
+#: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf
+_FAST = {"reassoc", "contract", "nsz", "arcp"}
 
-@njit(cache=True)
+
+@njit(cache=True, fastmath=_FAST)
 def _cholesky(a, out, rcond):
     """Lower Cholesky factor of a into out; False when a pivot squared falls to rcond * its
     diagonal entry or below (the matrix counts as singular)."""
@@ -36,38 +39,50 @@ def _cholesky(a, out, rcond):
     return True
 
 
-@njit(cache=True)
-def _efficiency(m, contrast, d_criterion, work, half):
-    """A- or D-efficiency of information m for contrast (q, p); 0 when m is singular.
+def prepare_contrast(contrast: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """C' with its columns ordered by their first non-zero weight, and for each parameter i the
+    number of those columns that start at or before i: the shape _efficiency expects.
+
+    Reordering contrast rows changes neither trace(C M^-1 C') nor its determinant, and with the
+    rows in this order (L^-1 C')'s row i is zero beyond active[i] (C kron I for FIR is mostly zeros).
+    """
+    c = np.asarray(contrast, dtype=float)
+    nonzero = c != 0
+    first = np.where(nonzero.any(axis=1), nonzero.argmax(axis=1), c.shape[1])
+    order = np.argsort(first, kind="stable")
+    active = np.searchsorted(first[order], np.arange(c.shape[1]), side="right")
+    return np.ascontiguousarray(c[order].T), active.astype(np.int64)
+
+
+@njit(cache=True, fastmath=_FAST)
+def _efficiency(m, ct, active, d_criterion, work, half):
+    """A- or D-efficiency of information m (only its lower triangle is read) for the contrast
+    prepared by prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
 
     work (p, p) and half (p, q) are scratch space."""
     p = m.shape[0]
-    q = contrast.shape[0]
+    q = ct.shape[1]
     if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle
         return 0.0
-    # half = L^-1 C', skipping each column's leading zeros (C kron I for FIR is mostly zeros)
-    for c in range(q):
-        first = p
-        for i in range(p):
-            if contrast[c, i] != 0.0:
-                first = i
-                break
-        for i in range(first):
-            half[i, c] = 0.0
-        for i in range(first, p):
-            t = contrast[c, i]
-            for k in range(first, i):
-                t -= work[i, k] * half[k, c]
-            half[i, c] = t / work[i, i]
+    # half = L^-1 C', row by row: all contrasts at once in the innermost (contiguous) loop, and
+    # only the contrasts that have started (active[k]) at each row
+    for i in range(p):
+        for c in range(q):
+            half[i, c] = ct[i, c]
+        for k in range(i):
+            lik = work[i, k]
+            for c in range(active[k]):
+                half[i, c] -= lik * half[k, c]
+        inv = 1.0 / work[i, i]
+        for c in range(active[i]):
+            half[i, c] *= inv
     if d_criterion:
         # det(C M^-1 C') = det(half' half), from its own Cholesky factor
-        g = np.empty((q, q))
-        for a in range(q):
-            for b in range(q):
-                t = 0.0
-                for i in range(p):
-                    t += half[i, a] * half[i, b]
-                g[a, b] = t
+        g = np.zeros((q, q))
+        for i in range(p):
+            for a in range(active[i]):
+                for b in range(active[i]):
+                    g[a, b] += half[i, a] * half[i, b]
         gl = np.empty((q, q))
         if not _cholesky(g, gl, 0.0):
             return 0.0
@@ -77,28 +92,39 @@ def _efficiency(m, contrast, d_criterion, work, half):
         return np.exp(-logdet / q)
     tr = 0.0
     for i in range(p):
-        for c in range(q):
+        for c in range(active[i]):
             tr += half[i, c] * half[i, c]
     return 1.0 / tr
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=_FAST)
+def _add_lower(m, x, y, v):
+    """Add v to the symmetric pair of entries (x, y) and (y, x), kept in m's lower triangle."""
+    if x > y:
+        m[x, y] += v
+    elif x < y:
+        m[y, x] += v
+    else:
+        m[x, x] += 2.0 * v
+
+
+@njit(cache=True, fastmath=_FAST)
 def update_scores(
-    m0, xp, cross_kind, gram, omega, fir_scan, col, group, nb, conds, trials, signs, contrast, d_criterion
+    m0, xp, cross_kind, gram, omega, fir_scan, col, group, nb, conds, trials, signs, ct, active, d_criterion
 ):
     """Scores of candidates that each add sign * (trial's regressor) to some conditions' columns.
 
     m0 (p, p): the current information; xp (G, N, p, nb): X' times each trial's regressor per group;
     conds, trials (n_cand, T) and signs (T,): the terms of each candidate. Trial products come from
     gram (G, G, N, nb, N, nb) when cross_kind == 0, or from omega at the trials' FIR volumes
-    (fir_scan (N, nb), -1 outside the run) when cross_kind == 1.
+    (fir_scan (N, nb), -1 outside the run) when cross_kind == 1. Only lower triangles are formed.
     """
     n_cand, n_terms = conds.shape
     p = m0.shape[0]
     out = np.empty(n_cand)
     m = np.empty((p, p))
     work = np.empty((p, p))
-    half = np.empty((p, contrast.shape[0]))
+    half = np.empty((p, ct.shape[1]))
     for k in range(n_cand):
         m[:] = m0
         for a in range(n_terms):
@@ -110,17 +136,19 @@ def update_scores(
             s = signs[a]
             g = group[c]
             for i in range(nb):
-                for j in range(p):
-                    v = s * xp[g, t, j, i]
-                    m[ca + i, j] += v
-                    m[j, ca + i] += v
+                r = ca + i
+                for j in range(r):  # row r left of the diagonal, then column r from it down
+                    m[r, j] += s * xp[g, t, j, i]
+                for j in range(r, p):
+                    m[j, r] += s * xp[g, t, j, i]
+                m[r, r] += s * xp[g, t, r, i]
         for a in range(n_terms):
             c1 = conds[k, a]
             ca = col[c1]
             if ca < 0:
                 continue
             t1 = trials[k, a]
-            for e in range(a, n_terms):  # each unordered pair once, added to both triangles
+            for e in range(a, n_terms):  # each unordered pair of terms once
                 c2 = conds[k, e]
                 ce = col[c2]
                 if ce < 0:
@@ -135,17 +163,33 @@ def update_scores(
                             v1 = fir_scan[t1, i]
                             v2 = fir_scan[t2, j]
                             v = omega[v1, v2] if v1 >= 0 and v2 >= 0 else 0.0
-                        m[ca + i, ce + j] += s * v
                         if e != a:
-                            m[ce + j, ca + i] += s * v
-        out[k] = _efficiency(m, contrast, d_criterion, work, half)
+                            _add_lower(m, ca + i, ce + j, s * v)
+                        elif ca + i >= ce + j:  # a term with itself: its block holds both halves
+                            m[ca + i, ce + j] += s * v
+        out[k] = _efficiency(m, ct, active, d_criterion, work, half)
     return out
 
 
-@njit(cache=True)
-def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, contrast, d_criterion):
+@njit(cache=True, fastmath=_FAST)
+def _assemble(m, acc, own, y):
+    """Lower triangle of m = acc + acc' + diag(own) - y y' over the first p rows and columns (the
+    rest gathered the baseline's terms, so that the loops need no branch)."""
+    p = m.shape[0]
+    r = y.shape[1]
+    for i in range(p):
+        for j in range(i + 1):
+            t = acc[i, j] + acc[j, i]
+            for a in range(r):
+                t -= y[i, a] * y[j, a]
+            m[i, j] = t
+        m[i, i] += own[i]
+
+
+@njit(cache=True, fastmath=_FAST)
+def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, ct, active, d_criterion):
     """FIR estimation efficiency of many orderings (bins of one TR), from which volume each
-    (trial, lag) falls in: M = X'W'WX - Y'Y with Y = (W'Q)'X.
+    (trial, lag) falls in: M = X'W'WX - Y Y' with Y = X'W'Q.
 
     scan_ptr (n + 1,), hit_trial, hit_lag: the (trial, lag) hits of each volume, grouped by volume;
     diag, off (n,): the tridiagonal W'W of the AR(1) filter (off[s] pairs volume s with s + 1);
@@ -153,39 +197,98 @@ def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, contrast
     """
     n_designs = codes.shape[0]
     n, r = qw.shape
-    p = contrast.shape[1]
+    p = ct.shape[0]
     out = np.empty(n_designs)
     m = np.empty((p, p))
-    y = np.empty((r, p))
+    acc = np.empty((p + 1, p + 1))  # ordered pairs of hits; row and column p gather the baseline's
+    own = np.empty(p + 1)
+    y = np.empty((p + 1, r))
     work = np.empty((p, p))
-    half = np.empty((p, contrast.shape[0]))
+    half = np.empty((p, ct.shape[1]))
+    cols = np.empty(len(hit_trial), dtype=np.int64)
+    ar = False
+    for s in range(n):
+        ar = ar or off[s] != 0.0
     for b in range(n_designs):
-        m[:] = 0.0
+        acc[:] = 0.0
+        own[:] = 0.0
         y[:] = 0.0
+        for h in range(len(hit_trial)):  # each hit's column in this design, p for the baseline
+            c = col[codes[b, hit_trial[h]]]
+            cols[h] = c + hit_lag[h] if c >= 0 else p
         for s in range(n):
             for h1 in range(scan_ptr[s], scan_ptr[s + 1]):
-                c1 = col[codes[b, hit_trial[h1]]]
-                if c1 < 0:
-                    continue
-                j1 = c1 + hit_lag[h1]
+                j1 = cols[h1]
                 for a in range(r):
-                    y[a, j1] += qw[s, a]
-                for h2 in range(scan_ptr[s], scan_ptr[s + 1]):
-                    c2 = col[codes[b, hit_trial[h2]]]
-                    if c2 >= 0:
-                        m[j1, c2 + hit_lag[h2]] += diag[s]
-                if s + 1 < n and off[s] != 0.0:
+                    y[j1, a] += qw[s, a]
+                own[j1] += diag[s]
+                for h2 in range(h1 + 1, scan_ptr[s + 1]):
+                    acc[j1, cols[h2]] += diag[s]
+                if ar and s + 1 < n:
                     for h2 in range(scan_ptr[s + 1], scan_ptr[s + 2]):
-                        c2 = col[codes[b, hit_trial[h2]]]
-                        if c2 >= 0:
-                            j2 = c2 + hit_lag[h2]
-                            m[j1, j2] += off[s]
-                            m[j2, j1] += off[s]
-        for i in range(p):
-            for j in range(p):
-                t = 0.0
+                        acc[j1, cols[h2]] += off[s]
+        _assemble(m, acc, own, y)
+        out[b] = _efficiency(m, ct, active, d_criterion, work, half)
+    return out
+
+
+@njit(cache=True, fastmath=_FAST)
+def band_scores(codes, col, group, nb, band, pair_i, pair_j, pair_vals, qr, ct, active, d_criterion):
+    """Detection efficiency of many orderings from the trials' regressor products.
+
+    With R the trials' whitened (unfiltered) regressors and Q the nuisance basis, the information is
+    M = Z'(R'R)Z - Y Y' with Y = Z'R'Q. R'R is zero unless two trials' responses overlap in time,
+    so it is kept by diagonals: band (D, N, G, G, nb, nb) holds trial i's products with trial i + d
+    by the two trials' duration groups (halved for d = 0: the sum with its transpose restores
+    it), and pair_i, pair_j, pair_vals list the few overlapping pairs further apart (responses
+    that wrap round a circular run). qr (N, G, nb, r) holds R'Q.
+    """
+    n_designs, n_trials = codes.shape
+    r = qr.shape[3]
+    p = ct.shape[0]
+    out = np.empty(n_designs)
+    m = np.empty((p, p))
+    w = p + nb  # rows and columns from p on gather the baseline's terms, so the loops need no branch
+    acc = np.empty(w * w)
+    acc2 = acc.reshape((w, w))
+    own = np.zeros(w)
+    y = np.empty((w, r))
+    work = np.empty((p, p))
+    half = np.empty((p, ct.shape[1]))
+    cols = np.empty(n_trials, dtype=np.int64)
+    groups = np.empty(n_trials, dtype=np.int64)
+    simple = nb == 1 and band.shape[2] == 1
+    for b in range(n_designs):
+        acc[:] = 0.0
+        y[:] = 0.0
+        for t in range(n_trials):
+            z = codes[b, t]
+            cols[t] = col[z] if col[z] >= 0 else p
+            groups[t] = group[z]
+        for t in range(n_trials):
+            c = cols[t]
+            g = groups[t]
+            for i in range(nb):
                 for a in range(r):
-                    t += y[a, i] * y[a, j]
-                m[i, j] -= t
-        out[b] = _efficiency(m, contrast, d_criterion, work, half)
+                    y[c + i, a] += qr[t, g, i, a]
+        if simple:  # one regressor per trial and one duration: the inner loop is a plain gather-add
+            for d in range(band.shape[0]):
+                for t in range(n_trials - d):
+                    acc[cols[t] * w + cols[t + d]] += band[d, t, 0, 0, 0, 0]
+        else:
+            for d in range(band.shape[0]):
+                for t in range(n_trials - d):
+                    gi = groups[t]
+                    gj = groups[t + d]
+                    for i in range(nb):
+                        for j in range(nb):
+                            acc2[cols[t] + i, cols[t + d] + j] += band[d, t, gi, gj, i, j]
+        for k in range(len(pair_i)):
+            ti = pair_i[k]
+            tj = pair_j[k]
+            for i in range(nb):
+                for j in range(nb):
+                    acc2[cols[ti] + i, cols[tj] + j] += pair_vals[k, groups[ti], groups[tj], i, j]
+        _assemble(m, acc2, own, y)
+        out[b] = _efficiency(m, ct, active, d_criterion, work, half)
     return out

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from seqsolve.efficiency import fast
 from seqsolve.efficiency.fast import Evaluator
 from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.reference import reference_scores
@@ -100,6 +101,20 @@ def test_every_single_change_and_swap_matches_reference(case, compiled):
         swapped[[i, j]] = swapped[[j, i]]
         ref = reference_scores(setup, layout, swapped)
         assert close(nb.swap_detection[s], ref[0]) and close(nb.swap_estimation[s], ref[1])
+
+
+@pytest.mark.parametrize("shared", [True, False], ids=["shared factor", "whole factor"])
+@pytest.mark.parametrize("case", list(CASES))
+def test_compiled_neighbours_equal_numpy_ones_everywhere(case, shared, monkeypatch):
+    # every candidate, both ways the compiled kernels factorise (the numpy path is held to the
+    # reference above): through the untouched blocks' shared factor, or one whole factor each
+    monkeypatch.setattr(fast, "SCHUR_MIN", 1 if shared else 10**9)
+    monkeypatch.setattr(fast, "SCHUR_MIN_COLUMNS", 1 if shared else 10**9)
+    study, setup, layout, codes, rng = build(case, seed=2)
+    a = Evaluator(setup, layout, study.facts.n_conditions, compiled=True).neighbours(codes)
+    b = Evaluator(setup, layout, study.facts.n_conditions, compiled=False).neighbours(codes)
+    for name in ("change_detection", "change_estimation", "swap_detection", "swap_estimation"):
+        assert close(getattr(a, name), getattr(b, name)), name
 
 
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])

@@ -26,6 +26,11 @@ from seqsolve.efficiency.setup import AnalysisSetup
 #: information matrices with a smaller reciprocal condition number count as singular
 RCOND = 1e-10
 
+#: fewest candidates touching the same blocks for which the shared factorisation pays (measured)
+SCHUR_MIN = 64
+#: and fewest columns (below it one whole small factorisation per candidate is cheaper, measured)
+SCHUR_MIN_COLUMNS = 12
+
 _THREADPOOLS: ThreadpoolController | None = None
 
 
@@ -425,7 +430,8 @@ class Evaluator:
         trial = np.repeat(trials, self.k)
         new = np.tile(np.arange(self.k), len(trials))
         terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
-        return self._score_terms(part, codes, terms, contrast, fir=False).reshape(len(trials), self.k)
+        moves = (new, codes[trial], trial, np.full(len(trial), -1))
+        return self._score_terms(part, codes, terms, contrast, fir=False, moves=moves).reshape(len(trials), self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
         """Swap trials i and j: condition c_j gains trial i and loses j, c_i the reverse."""
@@ -434,36 +440,31 @@ class Evaluator:
         i, j = pairs[:, 0], pairs[:, 1]
         ci, cj = codes[i], codes[j]
         terms = [(cj, i, 1.0), (cj, j, -1.0), (ci, j, 1.0), (ci, i, -1.0)]
-        return self._score_terms(part, codes, terms, contrast, fir=fir)
+        return self._score_terms(part, codes, terms, contrast, fir=fir, moves=(cj, ci, i, j))
 
-    def _score_terms(self, part: _Part, codes: np.ndarray, terms, contrast: np.ndarray, fir: bool) -> np.ndarray:
-        """Scores of candidates given as column-block updates, in chunks that stay in cache."""
+    def _score_terms(
+        self, part: _Part, codes: np.ndarray, terms, contrast: np.ndarray, fir: bool, moves=None
+    ) -> np.ndarray:
+        """Scores of candidates given as column-block updates, in chunks that stay in cache.
+
+        moves: the same candidates as (gaining condition, losing condition, trial, trial taken
+        away or -1), for the rank-2 path of kernels.rank2_scores."""
         n_cand = len(terms[0][0])
         chunk = max(1, 2_000_000 // (part.p * part.p))
         x = part.design(codes[None])[0]
         m = x.T @ x
         xp = np.stack([np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs])  # (G, N, p, nb)
-        if self.compiled:
-            # FIR products come from Omega at the trials' volumes (bins of one TR); detection's
-            # from the trials' Gram matrix
-            is_fir = part is self.est
-            if not is_fir or self.setup.fir_step <= self.setup.tr + 1e-9:
-                return kernels.update_scores(
-                    m,
-                    np.ascontiguousarray(xp),
-                    1 if is_fir else 0,
-                    np.zeros((1, 1, 1, 1, 1, 1)) if is_fir else self._gram(part),
-                    self.omega if is_fir else np.zeros((1, 1)),
-                    self.fir_scan if is_fir else np.zeros((1, 1), dtype=np.int64),
-                    part.col.astype(np.int64),
-                    part.group.astype(np.int64),
-                    part.nb,
-                    np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64),
-                    np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64),
-                    np.array([sg for _, _, sg in terms], dtype=float),
-                    *kernels.prepare_contrast(contrast),
-                    self.setup.criterion == "D",
-                )
+        if self.compiled and (part is self.det or self.setup.fir_step <= self.setup.tr + 1e-9):
+            if moves is not None and part.nb == 1 and len(part.regs) == 1 and self.setup.criterion == "A":
+                out = self._rank2(part, m, xp, moves, contrast)
+                if out is not None:
+                    redo = np.flatnonzero(np.isnan(out))
+                    if len(redo):
+                        out[redo] = self._compiled_terms(
+                            part, m, xp, [(c[redo], t[redo], sg) for c, t, sg in terms], contrast
+                        )
+                    return out
+            return self._compiled_terms(part, m, xp, terms, contrast)
         if part.nb == 1 and self.setup.criterion == "A":
             fast = self._woodbury(part, m, xp, terms, contrast, fir)
             if fast is not None:
@@ -474,6 +475,154 @@ class Evaluator:
             sub = [(c[sl], t[sl], sg) for c, t, sg in terms]
             out[sl] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, self.setup.criterion)[0]
         return out
+
+    def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
+        """kernels.rank2_scores; None when the current design is singular."""
+        try:
+            chol = np.linalg.cholesky(m)
+        except np.linalg.LinAlgError:
+            return None
+        if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
+            return None
+        minv = np.linalg.inv(m)
+        minv = (minv + minv.T) / 2
+        cm = contrast @ minv
+        h = cm.T @ cm
+        x1 = np.ascontiguousarray(xp[0, :, :, 0])
+        gains, loses, t1, t2 = (np.ascontiguousarray(v, dtype=np.int64) for v in moves)
+        return kernels.rank2_scores(
+            minv,
+            h,
+            float(np.trace(cm @ contrast.T)),
+            x1,
+            x1 @ minv,
+            x1 @ h,
+            self._gram(part)[0, 0, :, 0, :, 0],
+            part.col.astype(np.int64),
+            gains,
+            loses,
+            t1,
+            t2,
+        )
+
+    def _cross_source(self, part: _Part) -> tuple:
+        """Where the compiled kernels read trial products: FIR's from Omega at the trials' volumes
+        (bins of one TR), detection's from the trials' Gram matrix."""
+        if part is self.est:
+            return 1, np.zeros((1, 1, 1, 1, 1, 1)), self.omega, self.fir_scan
+        return 0, self._gram(part), np.zeros((1, 1)), np.zeros((1, 1), dtype=np.int64)
+
+    def _compiled_terms(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray) -> np.ndarray:
+        """Compiled scores of candidates given as (condition, trial, sign) terms.
+
+        Candidates that touch the same condition blocks are scored together through the Cholesky
+        factor of the untouched blocks (kernels.schur_scores) when there are enough of them to pay
+        for its set-up; the rest, and designs whose untouched part is singular, one by one through
+        a whole factorisation (kernels.update_scores)."""
+        conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
+        trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
+        signs = np.array([sg for _, _, sg in terms], dtype=float)
+        xp = np.ascontiguousarray(xp)
+        source = self._cross_source(part)
+        d_crit = self.setup.criterion == "D"
+        out = np.full(len(conds), np.nan)
+        # the blocks a candidate touches: the modelled conditions among its terms (at most two)
+        cols = part.col[conds]
+        lo = np.where(cols >= 0, cols, part.p).min(axis=1)
+        hi = cols.max(axis=1)
+        key = lo * (part.p + 1) + np.maximum(hi, 0)
+        for k in np.unique(key):
+            idx = np.flatnonzero(key == k)
+            first, last = int(lo[idx[0]]), int(hi[idx[0]])
+            if first == part.p:  # baseline trials only: the design does not change
+                out[idx] = kernels.update_scores(
+                    m,
+                    xp,
+                    *source,
+                    part.col.astype(np.int64),
+                    part.group.astype(np.int64),
+                    part.nb,
+                    conds[idx[:1]],
+                    trials[idx[:1]],
+                    signs,
+                    *kernels.prepare_contrast(contrast),
+                    d_crit,
+                )[0]
+                continue
+            if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
+                starts = [first] if first == last else [first, last]
+                done = self._schur(part, m, xp, source, starts, conds[idx], trials[idx], signs, contrast)
+                if done is not None:
+                    out[idx] = done
+                    continue
+            out[idx] = kernels.update_scores(
+                m,
+                xp,
+                *source,
+                part.col.astype(np.int64),
+                part.group.astype(np.int64),
+                part.nb,
+                conds[idx],
+                trials[idx],
+                signs,
+                *kernels.prepare_contrast(contrast),
+                d_crit,
+            )
+        return out
+
+    def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:
+        """kernels.schur_scores for candidates that touch the blocks starting at columns `starts`;
+        None when the untouched part of the current design is singular."""
+        nb = part.nb
+        s_idx = np.concatenate([np.arange(c, c + nb) for c in starts])
+        r_idx = np.setdiff1d(np.arange(part.p), s_idx)
+        ct = np.asarray(contrast, dtype=float).T  # (p, q)
+        if len(r_idx):
+            m_rr = m[np.ix_(r_idx, r_idx)]
+            try:
+                l_rr = np.linalg.cholesky(m_rr)
+            except np.linalg.LinAlgError:
+                return None
+            if (np.diag(l_rr) ** 2 <= RCOND * np.maximum(np.diag(m_rr), 1e-300)).any():
+                return None
+            li = solve_triangular(l_rr, np.eye(len(r_idx)), lower=True, check_finite=False)
+        else:
+            li = np.zeros((0, 0))
+        a0 = m[np.ix_(s_idx, r_idx)] @ li.T
+        g_r = li @ ct[r_idx]  # (r, q)
+        h0 = ct[s_idx] - a0 @ g_r
+        e = np.einsum("rk,gnkb->gnbr", li, xp[:, :, r_idx, :], optimize=True)
+        eg = e @ g_r
+        us = np.ascontiguousarray(xp[:, :, s_idx, :])
+        # order the contrasts by their first non-zero row in S (zeros are structural)
+        used = (h0 != 0) | (eg != 0).any(axis=(0, 1, 2))[None, :]
+        first = np.where(used.any(axis=0), used.argmax(axis=0), len(s_idx))
+        order = np.argsort(first, kind="stable")
+        active = np.searchsorted(first[order], np.arange(len(s_idx)), side="right").astype(np.int64)
+        g_r = g_r[:, order]
+        const = g_r.T @ g_r if self.setup.criterion == "D" else np.array([[np.sum(g_r * g_r)]])
+        block = np.full(part.p + 1, -1, dtype=np.int64)
+        for b, c in enumerate(starts):
+            block[c] = b
+        blocks = block[np.where(part.col[conds] >= 0, part.col[conds], part.p)]
+        return kernels.schur_scores(
+            np.ascontiguousarray(m[np.ix_(s_idx, s_idx)]),
+            np.ascontiguousarray(a0),
+            np.ascontiguousarray(h0[:, order]),
+            active,
+            np.ascontiguousarray(const),
+            np.ascontiguousarray(e),
+            np.ascontiguousarray(eg[..., order]),
+            us,
+            *source,
+            part.group.astype(np.int64),
+            nb,
+            conds,
+            np.ascontiguousarray(blocks),
+            trials,
+            signs,
+            self.setup.criterion == "D",
+        )
 
     def _woodbury(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray, fir: bool):
         """One-regressor-per-condition case: each candidate changes M by U S U' with U of 4 columns

@@ -21,8 +21,9 @@ _FAST = {"reassoc", "contract", "nsz", "arcp"}
 @njit(cache=True, fastmath=_FAST)
 def _cholesky(a, out, rcond):
     """Lower Cholesky factor of a into out; False when a pivot squared falls to rcond * its
-    diagonal entry or below (the matrix counts as singular)."""
-    n = a.shape[0]
+    diagonal entry or below (the matrix counts as singular). Factorises out's size of a's
+    leading block."""
+    n = out.shape[0]
     for j in range(n):
         s = a[j, j]
         for k in range(j):
@@ -59,8 +60,8 @@ def _efficiency(m, ct, active, d_criterion, work, half):
     """A- or D-efficiency of information m (only its lower triangle is read) for the contrast
     prepared by prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
 
-    work (p, p) and half (p, q) are scratch space."""
-    p = m.shape[0]
+    work (p, p) and half (p, q) are scratch space; m may be larger (its leading p x p block counts)."""
+    p = work.shape[0]
     q = ct.shape[1]
     if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle
         return 0.0
@@ -117,56 +118,49 @@ def update_scores(
     m0 (p, p): the current information; xp (G, N, p, nb): X' times each trial's regressor per group;
     conds, trials (n_cand, T) and signs (T,): the terms of each candidate. Trial products come from
     gram (G, G, N, nb, N, nb) when cross_kind == 0, or from omega at the trials' FIR volumes
-    (fir_scan (N, nb), -1 outside the run) when cross_kind == 1. Only lower triangles are formed.
+    (fir_scan (N, nb), -1 outside the run) when cross_kind == 1.
+
+    The matrix is updated whole, with nb spare rows and columns where the baseline's terms land,
+    so that no update needs a branch.
     """
     n_cand, n_terms = conds.shape
     p = m0.shape[0]
+    w = p + nb
     out = np.empty(n_cand)
-    m = np.empty((p, p))
+    m = np.zeros((w, w))
     work = np.empty((p, p))
     half = np.empty((p, ct.shape[1]))
+    start = np.empty(n_terms, dtype=np.int64)
     for k in range(n_cand):
-        m[:] = m0
+        m[:p, :p] = m0
         for a in range(n_terms):
             c = conds[k, a]
-            ca = col[c]
-            if ca < 0:
-                continue
+            start[a] = col[c] if col[c] >= 0 else p
             t = trials[k, a]
-            s = signs[a]
+            sg = signs[a]
             g = group[c]
             for i in range(nb):
-                r = ca + i
-                for j in range(r):  # row r left of the diagonal, then column r from it down
-                    m[r, j] += s * xp[g, t, j, i]
-                for j in range(r, p):
-                    m[j, r] += s * xp[g, t, j, i]
-                m[r, r] += s * xp[g, t, r, i]
+                r = start[a] + i
+                for j in range(p):
+                    v = sg * xp[g, t, j, i]
+                    m[r, j] += v
+                    m[j, r] += v
         for a in range(n_terms):
-            c1 = conds[k, a]
-            ca = col[c1]
-            if ca < 0:
-                continue
+            g1 = group[conds[k, a]]
             t1 = trials[k, a]
-            for e in range(a, n_terms):  # each unordered pair of terms once
-                c2 = conds[k, e]
-                ce = col[c2]
-                if ce < 0:
-                    continue
+            for e in range(n_terms):
+                g2 = group[conds[k, e]]
                 t2 = trials[k, e]
-                s = signs[a] * signs[e]
+                sg = signs[a] * signs[e]
                 for i in range(nb):
                     for j in range(nb):
                         if cross_kind == 0:
-                            v = gram[group[c1], group[c2], t1, i, t2, j]
+                            v = gram[g1, g2, t1, i, t2, j]
                         else:
                             v1 = fir_scan[t1, i]
                             v2 = fir_scan[t2, j]
                             v = omega[v1, v2] if v1 >= 0 and v2 >= 0 else 0.0
-                        if e != a:
-                            _add_lower(m, ca + i, ce + j, s * v)
-                        elif ca + i >= ce + j:  # a term with itself: its block holds both halves
-                            m[ca + i, ce + j] += s * v
+                        m[start[a] + i, start[e] + j] += sg * v
         out[k] = _efficiency(m, ct, active, d_criterion, work, half)
     return out
 
@@ -291,4 +285,222 @@ def band_scores(codes, col, group, nb, band, pair_i, pair_j, pair_vals, qr, ct, 
                     acc2[cols[ti] + i, cols[tj] + j] += pair_vals[k, groups[ti], groups[tj], i, j]
         _assemble(m, acc2, own, y)
         out[b] = _efficiency(m, ct, active, d_criterion, work, half)
+    return out
+
+
+@njit(cache=True, fastmath=_FAST)
+def schur_scores(
+    mss,
+    a0,
+    h0,
+    active,
+    const,
+    e,
+    eg,
+    us,
+    cross_kind,
+    gram,
+    omega,
+    fir_scan,
+    group,
+    nb,
+    conds,
+    blocks,
+    trials,
+    signs,
+    d_criterion,
+):
+    """Scores of candidates that all change the same one or two condition blocks S of the design,
+    from the Cholesky factor of the untouched part R, done once outside.
+
+    Ordered (R, S), M' = [[L_RR, 0], [L_SR, L_S]] [...]' with L_SR = M'_SR L_RR^-T, which is
+    a0 = M_SR L_RR^-T plus, per changed trial, e = (L_RR^-1 u_R)' (u = X' times the trial's
+    regressor); L_S is the Cholesky factor of the Schur complement M'_SS - L_SR L_SR'. Then
+    L'^-1 C' has rows G_R = L_RR^-1 C_R' (unchanged; const holds ||G_R||^2, or G_R'G_R for D)
+    and L_S^-1 (C_S' - L_SR G_R), where L_SR G_R is h0's complement plus eg = e G_R per trial.
+
+    mss (s, s): M_SS; a0 (s, r); h0 (s, q): C_S' - a0 G_R with columns in prepare_contrast's
+    order and active (s,) its counts; e (G, N, nb, r), eg (G, N, nb, q), us (G, N, s, nb): the
+    per-trial terms by duration group (us = u_S); blocks (n_cand, T): each term's block in S
+    (-1: baseline, nothing to do). The rest as in update_scores.
+    """
+    n_cand, n_terms = conds.shape
+    s = mss.shape[0]
+    r = a0.shape[1]
+    q = h0.shape[1]
+    out = np.empty(n_cand)
+    m = np.empty((s, s))
+    lsr = np.empty((s, r))
+    hh = np.empty((s, q))
+    work = np.empty((s, s))
+    for k in range(n_cand):
+        m[:] = mss
+        lsr[:] = a0
+        hh[:] = h0
+        for a in range(n_terms):
+            bk = blocks[k, a]
+            if bk < 0:
+                continue
+            t = trials[k, a]
+            sg = signs[a]
+            g = group[conds[k, a]]
+            for i in range(nb):
+                row = bk * nb + i
+                for j in range(r):
+                    lsr[row, j] += sg * e[g, t, i, j]
+                for j in range(q):
+                    hh[row, j] -= sg * eg[g, t, i, j]
+                for j in range(row):
+                    m[row, j] += sg * us[g, t, j, i]
+                for j in range(row, s):
+                    m[j, row] += sg * us[g, t, j, i]
+                m[row, row] += sg * us[g, t, row, i]
+        for a in range(n_terms):
+            ba = blocks[k, a]
+            if ba < 0:
+                continue
+            c1 = conds[k, a]
+            t1 = trials[k, a]
+            for b2 in range(a, n_terms):
+                bb = blocks[k, b2]
+                if bb < 0:
+                    continue
+                c2 = conds[k, b2]
+                t2 = trials[k, b2]
+                sg = signs[a] * signs[b2]
+                for i in range(nb):
+                    for j in range(nb):
+                        if cross_kind == 0:
+                            v = gram[group[c1], group[c2], t1, i, t2, j]
+                        else:
+                            v1 = fir_scan[t1, i]
+                            v2 = fir_scan[t2, j]
+                            v = omega[v1, v2] if v1 >= 0 and v2 >= 0 else 0.0
+                        x = ba * nb + i
+                        y = bb * nb + j
+                        if b2 != a:
+                            _add_lower(m, x, y, sg * v)
+                        elif x >= y:
+                            m[x, y] += sg * v
+        # Schur complement, lower triangle; its singularity is judged against M'_SS's diagonal
+        for i in range(s):
+            for j in range(i + 1):
+                t = 0.0
+                for c in range(r):
+                    t += lsr[i, c] * lsr[j, c]
+                work[i, j] = m[i, j] - t
+        for i in range(s):
+            for j in range(i + 1):
+                m[i, j], work[i, j] = work[i, j], m[i, j]  # m: the complement; work: M'_SS
+        ok = True
+        for j in range(s):  # Cholesky of the complement into m, in place, pivots against M'_SS
+            v = m[j, j]
+            for c in range(j):
+                v -= m[j, c] * m[j, c]
+            if v <= RCOND * max(work[j, j], 1e-300):
+                ok = False
+                break
+            d = np.sqrt(v)
+            m[j, j] = d
+            for i in range(j + 1, s):
+                t = m[i, j]
+                for c in range(j):
+                    t -= m[i, c] * m[j, c]
+                m[i, j] = t / d
+        if not ok:
+            out[k] = 0.0
+            continue
+        # F = L_S^-1 hh in place, row by row, only the contrasts that have started
+        for i in range(s):
+            for c in range(i):
+                lic = m[i, c]
+                for j in range(active[c]):
+                    hh[i, j] -= lic * hh[c, j]
+            inv = 1.0 / m[i, i]
+            for j in range(active[i]):
+                hh[i, j] *= inv
+        if d_criterion:
+            g2 = const.copy()
+            for i in range(s):
+                for a in range(active[i]):
+                    for b in range(active[i]):
+                        g2[a, b] += hh[i, a] * hh[i, b]
+            gl = np.empty((q, q))
+            if not _cholesky(g2, gl, 0.0):
+                out[k] = 0.0
+                continue
+            logdet = 0.0
+            for j in range(q):
+                logdet += 2.0 * np.log(gl[j, j])
+            out[k] = np.exp(-logdet / q)
+        else:
+            tr = const[0, 0]
+            for i in range(s):
+                for j in range(active[i]):
+                    tr += hh[i, j] * hh[i, j]
+            out[k] = 1.0 / tr
+    return out
+
+
+@njit(cache=True, fastmath=_FAST)
+def rank2_scores(minv, h, t0, xp, y, z, gram, col, gains, loses, t1, t2):
+    """A-efficiency after moving regressor d from condition `loses` to condition `gains`, where
+    d is trial t1's regressor, minus trial t2's when t2 >= 0 (a swap): one regressor per
+    condition and one duration group only.
+
+    With u = X'd and v = e_gains - e_loses, M' = M + u v' + v u' + (d'd) v v' = M + W C W' with
+    W = [u, v] and C = [[0, 1], [1, d'd]], so by Woodbury trace(C M'^-1 C') follows from
+    t0 = trace(C M^-1 C'), minv = M^-1, h = M^-1 C'C M^-1 and 2 x 2 algebra; y = xp minv and
+    z = xp h hold the per-trial products. NaN where the update nearly cancels (the caller scores
+    those in full).
+    """
+    n = len(t1)
+    out = np.empty(n)
+    p = minv.shape[0]
+    for k in range(n):
+        b = col[gains[k]]
+        a = col[loses[k]]
+        if a == b:  # the same condition, or baseline to baseline: nothing changes
+            out[k] = 1.0 / t0
+            continue
+        i = t1[k]
+        j = t2[k]
+        umu = 0.0
+        uhu = 0.0
+        if j >= 0:
+            dd = gram[i, i] + gram[j, j] - 2.0 * gram[i, j]
+            for c in range(p):
+                u = xp[i, c] - xp[j, c]
+                umu += u * (y[i, c] - y[j, c])
+                uhu += u * (z[i, c] - z[j, c])
+        else:
+            dd = gram[i, i]
+            for c in range(p):
+                umu += xp[i, c] * y[i, c]
+                uhu += xp[i, c] * z[i, c]
+        umv = 0.0
+        uhv = 0.0
+        vmv = 0.0
+        vhv = 0.0
+        if b >= 0:
+            umv += y[i, b] - (y[j, b] if j >= 0 else 0.0)
+            uhv += z[i, b] - (z[j, b] if j >= 0 else 0.0)
+            vmv += minv[b, b]
+            vhv += h[b, b]
+        if a >= 0:
+            umv -= y[i, a] - (y[j, a] if j >= 0 else 0.0)
+            uhv -= z[i, a] - (z[j, a] if j >= 0 else 0.0)
+            vmv += minv[a, a]
+            vhv += h[a, a]
+        if a >= 0 and b >= 0:
+            vmv -= 2.0 * minv[a, b]
+            vhv -= 2.0 * h[a, b]
+        k00 = umu - dd
+        k01 = 1.0 + umv
+        det = k00 * vmv - k01 * k01
+        if abs(det) <= 1e-8 * (abs(k00 * vmv) + k01 * k01):
+            out[k] = np.nan
+            continue
+        tr = t0 - (vmv * uhu - 2.0 * k01 * uhv + k00 * vhv) / det
+        out[k] = 1.0 / tr if tr > 1e-8 * t0 else np.nan
     return out

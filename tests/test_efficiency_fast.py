@@ -46,6 +46,8 @@ CASES = {
         timing={"tr": 2.0, "soa": 2.5, "lead_out": 12.0},
         analysis={"hrf": {"samples": [0, 0.3, 1, 0.7, 0.2, -0.1, 0], "step": 2.0}, "contrasts": "all-pairs"},
     ),
+    # SOA half a TR: two trials share each volume at the same lag (no bitsets for FIR columns)
+    "two trials per volume": dict(counts=[8, 8, 8], baseline=2, timing={"tr": 2.0, "soa": 1.0, "lead_out": 12.0}),
     # contrast rows whose first weights come in no order (the kernels reorder them)
     "contrasts out of order": dict(
         counts=[7, 7, 7, 7],
@@ -101,6 +103,17 @@ def test_every_single_change_and_swap_matches_reference(case, compiled):
         swapped[[i, j]] = swapped[[j, i]]
         ref = reference_scores(setup, layout, swapped)
         assert close(nb.swap_detection[s], ref[0]) and close(nb.swap_estimation[s], ref[1])
+
+
+def test_cases_cover_every_compiled_estimation_kernel():
+    kinds = {}
+    for case in CASES:
+        study, setup, layout, _, _ = build(case)
+        ev = Evaluator(setup, layout, study.facts.n_conditions)
+        kind = "bits" if ev.fir_bits is not None else "hits" if ev.fir_kernel is not None else "numpy"
+        kinds.setdefault(kind, []).append(case)
+    assert set(kinds) == {"bits", "hits", "numpy"}, kinds
+    assert "two runs, drift, ar1" in kinds["bits"]  # AR(1) weights through the masks
 
 
 @pytest.mark.parametrize("shared", [True, False], ids=["shared factor", "whole factor"])

@@ -284,6 +284,31 @@ class Evaluator:
         np.add.at(raw, (vol, trial, lag), 1.0)
         return raw
 
+    def _fir_bits(self, diag, off, qw) -> tuple | None:
+        """What kernels.fir_bit_scores needs, or None where it does not apply: two trials at one
+        volume and lag (their columns would count 2 there), or too many distinct filter weights."""
+        if not self.fir_unique:
+            return None
+        n = len(diag)
+        n_words = n // 64 + 1  # room for a spare bit at n
+
+        def masks(values, keep):
+            kinds = np.unique(values[keep])
+            out = np.zeros((len(kinds), n_words * 64), dtype=bool)
+            for k, v in enumerate(kinds):
+                out[k, :n] = keep & (values == v)
+            return kinds.astype(float), np.packbits(out, axis=1, bitorder="little").view(np.uint64).reshape(
+                len(kinds), n_words
+            )
+
+        dw, dmask = masks(diag, np.ones(n, dtype=bool))
+        ow, omask = masks(off, off != 0.0)
+        if len(dw) > 4 or len(ow) > 4:
+            return None
+        fscan = np.where(self.fir_scan >= 0, self.fir_scan, n)  # n: a spare bit outside every mask
+        qf = np.where((self.fir_scan >= 0)[:, :, None], qw[np.minimum(fscan, n - 1)], 0.0)
+        return (fscan.astype(np.int64), np.ascontiguousarray(qf), n_words, dw, dmask, ow, omask)
+
     def _omega(self) -> np.ndarray:
         """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries.
 
@@ -291,7 +316,7 @@ class Evaluator:
         W'W and W'Q (None where the compiled path does not apply)."""
         eye = np.eye(self.layout.n_scans)
         w = whiten(eye, self.setup.ar1, self.layout.run_lengths)
-        self.fir_kernel = None
+        self.fir_kernel = self.fir_bits = None
         if self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9:
             wtw = w.T @ w
             n = len(wtw)
@@ -302,6 +327,7 @@ class Evaluator:
                 order = np.argsort(scan, kind="stable")
                 ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
                 self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, w.T @ self.q)
+                self.fir_bits = self._fir_bits(diag, off, w.T @ self.q)
         rw = w - self.q @ (self.q.T @ w)
         return rw.T @ rw
 
@@ -338,7 +364,15 @@ class Evaluator:
                 xd = self.det.design(codes)
                 md = np.swapaxes(xd, 1, 2) @ xd
                 det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
-            if estimation and self.fir_kernel is not None:
+            if estimation and self.fir_bits is not None:
+                est = kernels.fir_bit_scores(
+                    np.ascontiguousarray(codes, dtype=np.int64),
+                    self.est.col.astype(np.int64),
+                    *self.fir_bits,
+                    *self.k_est,
+                    self.setup.criterion == "D",
+                )
+            elif estimation and self.fir_kernel is not None:
                 ptr, trial, lag, diag, off, qw = self.fir_kernel
                 est = kernels.fir_scores(
                     np.ascontiguousarray(codes, dtype=np.int64),

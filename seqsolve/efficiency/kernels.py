@@ -8,14 +8,30 @@ Compiled once per machine (cache=True), a few seconds on first use.
 
 from __future__ import annotations
 
+import llvmlite.ir as llvm_ir
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.extending import intrinsic
 
 #: the same singularity rule as fast.RCOND
 RCOND = 1e-10
 
 #: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf
 _FAST = {"reassoc", "contract", "nsz", "arcp"}
+
+
+@intrinsic
+def _popcount(typingctx, x):
+    """Number of set bits of a 64-bit integer (LLVM's ctpop, one instruction on current CPUs)."""
+    if not isinstance(x, types.Integer) or x.bitwidth != 64:
+        return None
+
+    def codegen(context, builder, signature, args):
+        i64 = llvm_ir.IntType(64)
+        fn = builder.module.declare_intrinsic("llvm.ctpop", [i64], llvm_ir.FunctionType(i64, [i64]))
+        return builder.call(fn, [args[0]])
+
+    return types.int64(x), codegen
 
 
 @njit(cache=True, fastmath=_FAST)
@@ -221,6 +237,74 @@ def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, ct, acti
                 if ar and s + 1 < n:
                     for h2 in range(scan_ptr[s + 1], scan_ptr[s + 2]):
                         acc[j1, cols[h2]] += off[s]
+        _assemble(m, acc, own, y)
+        out[b] = _efficiency(m, ct, active, d_criterion, work, half)
+    return out
+
+
+@njit(cache=True, fastmath=_FAST)
+def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, active, d_criterion):
+    """fir_scores for designs where no two trials of a design share a volume at the same lag:
+    each FIR column is then a set of volumes, kept as a bitset, and the products of two columns
+    are counts of the volumes they share, by popcount.
+
+    M[x, y] = sum_k dw[k] |x & y & dmask[k]| + sum_k ow[k] (|x & y>>1 & omask[k]| + |x>>1 & y & omask[k]|)
+    where dmask[k] marks the volumes whose W'W diagonal is dw[k], and omask[k] the volumes s whose
+    W'W entry with s + 1 is ow[k] (AR(1) prewhitening; none without it). Then M -= Y Y' as before.
+    fscan (N, lags): each trial's volume at each lag (a spare bit past the last volume, outside
+    every mask, where the lag falls outside the run); qf (N, lags, r): W'Q at those volumes (0 outside).
+    """
+    n_designs, n_trials = codes.shape
+    lags = fscan.shape[1]
+    r = qf.shape[2]
+    p = ct.shape[0]
+    nd = len(dw)
+    no = len(ow)
+    out = np.empty(n_designs)
+    m = np.empty((p, p))
+    acc = np.zeros((p + lags, p + lags))  # only its lower triangle is filled; _assemble adds acc'
+    own = np.zeros(p + lags)
+    y = np.empty((p + lags, r))
+    bits = np.empty((p + lags, n_words), dtype=np.uint64)  # rows from p on: the baseline's hits
+    nxt = np.empty((p + lags, n_words), dtype=np.uint64)  # the same, one volume on
+    work = np.empty((p, p))
+    half = np.empty((p, ct.shape[1]))
+    one = np.uint64(1)
+    sixty_three = np.uint64(63)
+    for b in range(n_designs):
+        bits[:] = 0
+        y[:] = 0.0
+        for t in range(n_trials):
+            c = col[codes[b, t]]
+            c = c if c >= 0 else p
+            for lag in range(lags):
+                sc = fscan[t, lag]
+                bits[c + lag, sc >> 6] |= one << np.uint64(sc & 63)
+                for a in range(r):
+                    y[c + lag, a] += qf[t, lag, a]
+        if no:
+            for j in range(p):
+                for w in range(n_words):
+                    v = bits[j, w] >> one
+                    if w + 1 < n_words:
+                        v |= bits[j, w + 1] << sixty_three
+                    nxt[j, w] = v
+        for i in range(p):
+            for j in range(i + 1):
+                v = 0.0
+                for k in range(nd):
+                    cnt = 0
+                    for w in range(n_words):
+                        cnt += _popcount(bits[i, w] & bits[j, w] & dmask[k, w])
+                    v += dw[k] * cnt
+                for k in range(no):
+                    cnt = 0
+                    for w in range(n_words):
+                        cnt += _popcount(bits[i, w] & nxt[j, w] & omask[k, w])
+                        cnt += _popcount(nxt[i, w] & bits[j, w] & omask[k, w])
+                    v += ow[k] * cnt
+                # acc + acc' doubles the diagonal: put half of it there
+                acc[i, j] = v if i != j else 0.5 * v
         _assemble(m, acc, own, y)
         out[b] = _efficiency(m, ct, active, d_criterion, work, half)
     return out

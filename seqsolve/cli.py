@@ -104,6 +104,9 @@ def generate(
         float | None, typer.Option(min=0, help="Wall-clock cap in seconds per participant's search.")
     ] = None,
     front: Annotated[int, typer.Option(min=0, help="Also write front.tsv: the trade-off at this many weightings.")] = 0,
+    workers: Annotated[
+        int, typer.Option(min=1, help="Processes searching participants side by side; the designs do not depend on it.")
+    ] = 1,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
 ) -> None:
@@ -142,7 +145,7 @@ def generate(
             force=force,
             options=solve,
             progress=None if steps else _progress(started),
-            search=SearchOptions(iterations=iterations, budget=budget, solve=solve),
+            search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
         )

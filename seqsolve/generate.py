@@ -18,7 +18,7 @@ from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
-from seqsolve.search import Progress, Search, SearchOptions
+from seqsolve.search import Judge, Progress, Search, SearchOptions, SearchResult
 from seqsolve.solve import (
     ParticipantOrdering,
     SolveOptions,
@@ -28,7 +28,8 @@ from seqsolve.solve import (
     sample_orderings,
 )
 from seqsolve.spec import Study
-from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
+from seqsolve.timing import RunSchedule, make_schedules
+from seqsolve.workers import Job, search_in_workers, search_participant
 
 
 @dataclass
@@ -105,38 +106,58 @@ def design_study(
 
 
 def _searched(study, options, search, progress, on_step) -> StudyDesigns:
+    """Every participant's search, run on its own (in search.workers processes when above 1), then
+    a pass in participant order that searches again, knowing the earlier participants' designs,
+    for any design that repeats one of them (or breaks a participants-differ rule)."""
     setup = make_setup(study)
     weights = Weights.from_study(study)
     method = choose_method(study, options)
     out = StudyDesigns(weights=weights)
-    for i, label in enumerate(study.participants):
-        if progress:
-            progress(i, len(study.participants), label)
-        seed = derive_seed(study.spec.study.seed, i)
-        earlier = [d.runs for d in out]
+    n = len(study.participants)
+    jobs = [Job(i, label, derive_seed(study.spec.study.seed, i)) for i, label in enumerate(study.participants)]
+    results: dict[int, SearchResult | None] = {}
+    seconds: dict[int, float] = {}
+    try:
+        # one yardstick for every participant: the first participant's seed
+        out.references = References.for_study(study, setup, jobs[0].seed)
+        if search.workers > 1 and n > 1:
+            done = 0
+            for job, result in search_in_workers(study, out.references, search, jobs, search.workers, on_step):
+                results[job.index], seconds[job.index] = result, result.seconds if result else 0.0
+                done += 1
+                if progress:
+                    progress(done, n, job.label)
+        else:
+            for job in jobs:
+                if progress:
+                    progress(job.index, n, job.label)
+                t0 = time.perf_counter()
+                results[job.index] = search_participant(study, out.references, search, job, on_step)
+                seconds[job.index] = time.perf_counter() - t0
+                if results[job.index].stopped == "interrupted":
+                    raise KeyboardInterrupt
+    except KeyboardInterrupt:
+        out.interrupted = True
+    for job in jobs:
         t0 = time.perf_counter()
-        args = (study, label, seed, method, earlier, options, t0)
-        if out.interrupted:
-            out.append(_unsearched(*args))
-            continue
-        try:
-            starts = Search.sample_starts(study, seed, earlier, search)
-            gaps = draw_gaps(study, starts[0], seed)
-            if out.references is None:  # one yardstick for every participant: the first's timing
-                out.references = References.for_study(study, setup, seed)
-            scorer = Scorer(study, weights, out.references, seed, gaps, setup)
-            result = Search(study, scorer, label, seed, earlier, search, on_step).run(starts)
-        except KeyboardInterrupt:  # stopped before this participant's search began
+        earlier = [d.runs for d in out]
+        args = (study, job.label, job.seed, method, earlier, options, t0)
+        result = results.get(job.index)
+        if result is not None and result.stopped == "interrupted":
             out.interrupted = True
-            out.append(_unsearched(*args))
+        if result is not None and not Judge(study, earlier).ok(result.runs):
+            result = (
+                None if out.interrupted else search_participant(study, out.references, search, job, on_step, earlier)
+            )
+        if result is None:
+            out.append(_unsearched(*args))  # only after a Ctrl-C
             continue
-        if result.stopped == "interrupted":
-            out.interrupted = True
-        schedules = make_schedules(study, result.runs, seed, result.gaps)
+        schedules = make_schedules(study, result.runs, job.seed, result.gaps)
         info = {"iterations": result.iterations, "stopped": result.stopped, "improving_steps": result.accepted}
-        out.append(Design(label, seed, method, result.runs, schedules, time.perf_counter() - t0, result.figures, info))
+        took = seconds.get(job.index, 0.0) + time.perf_counter() - t0
+        out.append(Design(job.label, job.seed, method, result.runs, schedules, took, result.figures, info))
     if progress:
-        progress(len(study.participants), len(study.participants), "")
+        progress(n, n, "")
     if not out.interrupted:
         _even_out(study, out, setup, search, on_step)
     timed = [d.label for d in out if d.search and d.search.get("stopped") == "budget"]

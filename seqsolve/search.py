@@ -66,6 +66,7 @@ class SearchOptions:
     travel: float = 0.001  # record-to-record travel: moves may fall this fraction below the best score
     travel_share: float = 0.85  # share of steps that travel once no swap gains
     solve: SolveOptions = field(default_factory=SolveOptions)
+    workers: int = 1  # processes searching participants side by side (generate); same designs for any count
 
 
 @dataclass

@@ -146,6 +146,48 @@ def test_participants_get_distinct_designs_within_the_spread():
     assert designs.spread() == pytest.approx(1 - min(scores) / max(scores))
 
 
+def test_repeated_designs_are_searched_again_knowing_the_earlier_ones():
+    # the tiny spec's optimum is reached from any seed, so participants searched on their own
+    # collide; the pass in participant order searches each repeat again, excluding earlier designs
+    from seqsolve.workers import Job, search_participant
+
+    study = make_study(
+        [4, 4, 3],
+        [{"kind": "max-run", "length": 2}],
+        baseline=2,
+        participants=3,
+        analysis={"fir_window": 6.0, "high_pass_cutoff": 0.0},
+        objective={"iterations": 150, "stall": 60},
+    )
+    options = SearchOptions()
+    refs = References.for_study(study, make_setup(study), derive_seed(study.spec.study.seed, 0))
+    alone = [
+        tuple(search_participant(study, refs, options, Job(i, label, derive_seed(0, i))).runs[0].tolist())
+        for i, label in enumerate(study.participants)
+    ]
+    assert len(set(alone)) < 3  # the premise: on their own, some participants get the same design
+    designs = design_study(study, search=options)
+    keys = [tuple(d.runs[0].tolist()) for d in designs]
+    assert len(set(keys)) == 3
+    assert all(check_runs(study, study.rules, d.runs) == [] for d in designs)
+    assert keys[0] == alone[0]  # the first participant has nobody to differ from
+
+
+def test_worker_processes_give_the_same_designs():
+    study = make_study(
+        [8, 8, 8],
+        [{"kind": "max-run", "length": 2}],
+        baseline=2,
+        participants=3,
+        runs=2,
+        objective={"iterations": 15},
+    )
+    one = design_study(study, search=SearchOptions(workers=1))
+    two = design_study(study, search=SearchOptions(workers=2))
+    assert [np.concatenate(d.runs).tolist() for d in one] == [np.concatenate(d.runs).tolist() for d in two]
+    assert [d.figures.score for d in one] == [d.figures.score for d in two]
+
+
 def test_jittered_gaps_are_only_rearranged():
     study = make_study(
         [5, 5, 5, 5],
@@ -239,7 +281,10 @@ iterations = 10
     assert manifest["participants"][0]["search"]["iterations"] == 10
 
 
-def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path):
+@pytest.mark.parametrize("workers, group", [(1, False), (2, False), (2, True)])
+def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path, workers, group):
+    # group: the signal goes to every process of the command, as a terminal's Ctrl-C does
+    import os
     import signal
     import subprocess
     import sys
@@ -254,11 +299,15 @@ def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path):
     )
     out = tmp_path / "out"
     cmd = [sys.executable, "-c", "from seqsolve.cli import main; main()", "generate", str(spec), "-o", str(out)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    cmd += ["--workers", str(workers)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=group)
     for line in proc.stderr:  # wait until the search reports its first step, then press Ctrl-C
         if "best" in line:
             break
-    proc.send_signal(signal.SIGINT)
+    if group:
+        os.killpg(proc.pid, signal.SIGINT)
+    else:
+        proc.send_signal(signal.SIGINT)
     stdout, _ = proc.communicate(timeout=300)
     assert proc.returncode == 0, stdout
     assert "interrupted" in stdout

@@ -1,0 +1,138 @@
+"""Participants' searches side by side in worker processes (one core each).
+
+Each search pins BLAS to one thread (efficiency.fast.one_blas_thread), so on a laptop the way to
+use its other cores is more processes, one participant each. A search depends only on the study,
+its seed and the shared references, so a participant's design is the same whichever process
+runs it and however many there are.
+
+Workers ignore Ctrl-C themselves: the main process catches it, cancels the jobs not yet started
+and raises a stop flag that each running search sees at its next step (through its progress
+callback), so that it returns its best design so far. No signal can land between a search's end
+and its result being sent back.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import queue as queue_module
+import signal
+from collections.abc import Callable, Iterator
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass
+
+from seqsolve.objective import References, Scorer, Weights
+from seqsolve.search import Progress, Search, SearchOptions, SearchResult
+from seqsolve.spec import Study
+from seqsolve.timing import draw_gaps
+
+
+@dataclass(frozen=True)
+class Job:
+    """One participant's search, with nothing of the others'."""
+
+    index: int
+    label: str
+    seed: int
+
+
+def search_participant(
+    study: Study,
+    references: References,
+    options: SearchOptions,
+    job: Job,
+    on_step: Callable[[Progress], None] | None = None,
+    earlier: list | None = None,
+) -> SearchResult:
+    """Search one participant's design (valid, and different from `earlier` participants' ones)."""
+    from seqsolve.efficiency.setup import make_setup
+
+    earlier = earlier or []
+    setup = make_setup(study)
+    starts = Search.sample_starts(study, job.seed, earlier, options)
+    gaps = draw_gaps(study, starts[0], job.seed)
+    scorer = Scorer(study, Weights.from_study(study), references, job.seed, gaps, setup)
+    return Search(study, scorer, job.label, job.seed, earlier, options, on_step).run(starts)
+
+
+_STEPS = None  # the worker's queue of progress reports to the main process
+_STOP = None  # the main process's stop flag (an Event)
+
+
+def _start_worker(steps, stop) -> None:
+    global _STEPS, _STOP
+    _STEPS, _STOP = steps, stop
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides; see the module docstring
+
+
+def _run_job(study: Study, references: References, options: SearchOptions, job: Job) -> SearchResult | None:
+    if _STOP.is_set():
+        return None
+    return search_participant(study, references, options, job, _report)
+
+
+def _report(p: Progress) -> None:
+    """A search step's progress: to the main process, and a stop there ends the search here."""
+    _STEPS.put(p)
+    if _STOP.is_set():
+        raise KeyboardInterrupt  # Search.run keeps its best design and returns
+
+
+def search_in_workers(
+    study: Study,
+    references: References,
+    options: SearchOptions,
+    jobs: list[Job],
+    workers: int,
+    on_step: Callable[[Progress], None] | None = None,
+) -> Iterator[tuple[Job, SearchResult | None]]:
+    """Run the jobs in `workers` processes; yield (job, result) as each ends, and (job, None) for
+    jobs that a Ctrl-C cancelled or stopped before their search began. Raises KeyboardInterrupt
+    after the last result when a Ctrl-C came."""
+    ctx = multiprocessing.get_context("spawn")  # no fork of a process that holds solver threads
+    steps, stop = ctx.Queue(), ctx.Event()
+    interrupted = False
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_start_worker, initargs=(steps, stop))
+    try:
+        futures = {pool.submit(_run_job, study, references, options, job): job for job in jobs}
+        pending = set(futures)
+        while pending:
+            try:
+                done, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
+            except KeyboardInterrupt:
+                interrupted = True
+                stop.set()
+                for f in pending:
+                    f.cancel()
+                done, pending = wait(pending).done, set()
+            _drain(steps, on_step)
+            for f in done:
+                yield futures[f], _result(f, interrupted)
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+        _drain(steps, on_step)
+    if interrupted:
+        raise KeyboardInterrupt
+
+
+def _result(future, interrupted: bool) -> SearchResult | None:
+    if future.cancelled():
+        return None
+    try:
+        return future.result()
+    except KeyboardInterrupt:  # the stop came while the search's starts were sampled
+        return None
+    except BrokenProcessPool:  # a terminal's Ctrl-C reached a worker still starting up
+        if interrupted:
+            return None
+        raise
+
+
+def _drain(steps, on_step) -> None:
+    while True:
+        try:
+            p = steps.get_nowait()
+        except (queue_module.Empty, OSError, ValueError):
+            return
+        if on_step:
+            on_step(p)

@@ -512,11 +512,7 @@ class Evaluator:
 
     def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
         """kernels.rank2_scores; None when the current design is singular."""
-        try:
-            chol = np.linalg.cholesky(m)
-        except np.linalg.LinAlgError:
-            return None
-        if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
+        if _regular_cholesky(m) is None:
             return None
         minv = np.linalg.inv(m)
         minv = (minv + minv.T) / 2
@@ -612,12 +608,8 @@ class Evaluator:
         r_idx = np.setdiff1d(np.arange(part.p), s_idx)
         ct = np.asarray(contrast, dtype=float).T  # (p, q)
         if len(r_idx):
-            m_rr = m[np.ix_(r_idx, r_idx)]
-            try:
-                l_rr = np.linalg.cholesky(m_rr)
-            except np.linalg.LinAlgError:
-                return None
-            if (np.diag(l_rr) ** 2 <= RCOND * np.maximum(np.diag(m_rr), 1e-300)).any():
+            l_rr = _regular_cholesky(m[np.ix_(r_idx, r_idx)])
+            if l_rr is None:
                 return None
             li = solve_triangular(l_rr, np.eye(len(r_idx)), lower=True, check_finite=False)
         else:
@@ -663,11 +655,7 @@ class Evaluator:
         (two unit vectors and two X'd vectors), so its trace(C M'^-1 C') follows from 4 x 4 algebra.
         Candidates whose update nearly cancels M's rank are recomputed the plain way; None if M itself
         is singular."""
-        try:
-            chol = np.linalg.cholesky(m)
-        except np.linalg.LinAlgError:
-            return None
-        if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
+        if _regular_cholesky(m) is None:
             return None
         minv = np.linalg.inv(m)
         h = minv @ contrast.T @ contrast @ minv
@@ -781,6 +769,17 @@ class Evaluator:
             regs = part.regs
             part.own = np.array([[np.einsum("nib,nic->ibc", g, h, optimize=True) for h in regs] for g in regs])
         return part.own
+
+
+def _regular_cholesky(m: np.ndarray) -> np.ndarray | None:
+    """Lower Cholesky factor of m, or None when m counts as singular (the RCOND rule)."""
+    try:
+        chol = np.linalg.cholesky(m)
+    except np.linalg.LinAlgError:
+        return None
+    if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
+        return None
+    return chol
 
 
 def _two_blocks(terms):

@@ -39,12 +39,19 @@ def _cholesky(a, out, rcond):
     """Lower Cholesky factor of a into out; False when a pivot squared falls to rcond * its
     diagonal entry or below (the matrix counts as singular). Factorises out's size of a's
     leading block."""
+    return _cholesky_against(a, out, rcond, a)
+
+
+@njit(cache=True, fastmath=_FAST)
+def _cholesky_against(a, out, rcond, ref):
+    """_cholesky, with the pivots judged against ref's diagonal instead of a's (a Schur complement
+    is judged against the whole matrix's entries)."""
     n = out.shape[0]
     for j in range(n):
         s = a[j, j]
         for k in range(j):
             s -= out[j, k] * out[j, k]
-        if s <= rcond * max(a[j, j], 1e-300):
+        if s <= rcond * max(ref[j, j], 1e-300):
             return False
         d = np.sqrt(s)
         out[j, j] = d
@@ -77,29 +84,34 @@ def _efficiency(m, ct, active, d_criterion, work, half):
     prepared by prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
 
     work (p, p) and half (p, q) are scratch space; m may be larger (its leading p x p block counts)."""
-    p = work.shape[0]
-    q = ct.shape[1]
     if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle
         return 0.0
-    # half = L^-1 C', row by row: all contrasts at once in the innermost (contiguous) loop, and
-    # only the contrasts that have started (active[k]) at each row
+    half[:] = ct
+    return _solved_score(work, half, active, d_criterion, 0.0, half[:0, :0])
+
+
+@njit(cache=True, fastmath=_FAST)
+def _solved_score(chol, rhs, active, d_criterion, const_trace, const_gram):
+    """rhs <- L^-1 rhs in place (L: chol's lower triangle; row i of rhs is zero beyond active[i],
+    which must not decrease), then the efficiency whose C M^-1 C' is const_gram + rhs'rhs (D; an
+    empty const_gram stands for zeros) or whose trace is const_trace + ||rhs||^2 (A). Rows are solved with all contrasts in the innermost
+    (contiguous) loop, and only the contrasts that have started."""
+    p, q = rhs.shape
     for i in range(p):
-        for c in range(q):
-            half[i, c] = ct[i, c]
         for k in range(i):
-            lik = work[i, k]
+            lik = chol[i, k]
             for c in range(active[k]):
-                half[i, c] -= lik * half[k, c]
-        inv = 1.0 / work[i, i]
+                rhs[i, c] -= lik * rhs[k, c]
+        inv = 1.0 / chol[i, i]
         for c in range(active[i]):
-            half[i, c] *= inv
+            rhs[i, c] *= inv
     if d_criterion:
-        # det(C M^-1 C') = det(half' half), from its own Cholesky factor
-        g = np.zeros((q, q))
+        # det(C M^-1 C'), from its own Cholesky factor
+        g = np.zeros((q, q)) if const_gram.shape[0] == 0 else const_gram.copy()
         for i in range(p):
             for a in range(active[i]):
                 for b in range(active[i]):
-                    g[a, b] += half[i, a] * half[i, b]
+                    g[a, b] += rhs[i, a] * rhs[i, b]
         gl = np.empty((q, q))
         if not _cholesky(g, gl, 0.0):
             return 0.0
@@ -107,10 +119,10 @@ def _efficiency(m, ct, active, d_criterion, work, half):
         for j in range(q):
             logdet += 2.0 * np.log(gl[j, j])
         return np.exp(-logdet / q)
-    tr = 0.0
+    tr = const_trace
     for i in range(p):
         for c in range(active[i]):
-            tr += half[i, c] * half[i, c]
+            tr += rhs[i, c] * rhs[i, c]
     return 1.0 / tr
 
 
@@ -416,6 +428,7 @@ def schur_scores(
     m = np.empty((s, s))
     lsr = np.empty((s, r))
     hh = np.empty((s, q))
+    comp = np.empty((s, s))
     work = np.empty((s, s))
     for k in range(n_cand):
         m[:] = mss
@@ -466,63 +479,17 @@ def schur_scores(
                             _add_lower(m, x, y, sg * v)
                         elif x >= y:
                             m[x, y] += sg * v
-        # Schur complement, lower triangle; its singularity is judged against M'_SS's diagonal
+        # Schur complement, lower triangle, factorised with pivots judged against M'_SS's diagonal
         for i in range(s):
             for j in range(i + 1):
                 t = 0.0
                 for c in range(r):
                     t += lsr[i, c] * lsr[j, c]
-                work[i, j] = m[i, j] - t
-        for i in range(s):
-            for j in range(i + 1):
-                m[i, j], work[i, j] = work[i, j], m[i, j]  # m: the complement; work: M'_SS
-        ok = True
-        for j in range(s):  # Cholesky of the complement into m, in place, pivots against M'_SS
-            v = m[j, j]
-            for c in range(j):
-                v -= m[j, c] * m[j, c]
-            if v <= RCOND * max(work[j, j], 1e-300):
-                ok = False
-                break
-            d = np.sqrt(v)
-            m[j, j] = d
-            for i in range(j + 1, s):
-                t = m[i, j]
-                for c in range(j):
-                    t -= m[i, c] * m[j, c]
-                m[i, j] = t / d
-        if not ok:
+                comp[i, j] = m[i, j] - t
+        if not _cholesky_against(comp, work, RCOND, m):
             out[k] = 0.0
             continue
-        # F = L_S^-1 hh in place, row by row, only the contrasts that have started
-        for i in range(s):
-            for c in range(i):
-                lic = m[i, c]
-                for j in range(active[c]):
-                    hh[i, j] -= lic * hh[c, j]
-            inv = 1.0 / m[i, i]
-            for j in range(active[i]):
-                hh[i, j] *= inv
-        if d_criterion:
-            g2 = const.copy()
-            for i in range(s):
-                for a in range(active[i]):
-                    for b in range(active[i]):
-                        g2[a, b] += hh[i, a] * hh[i, b]
-            gl = np.empty((q, q))
-            if not _cholesky(g2, gl, 0.0):
-                out[k] = 0.0
-                continue
-            logdet = 0.0
-            for j in range(q):
-                logdet += 2.0 * np.log(gl[j, j])
-            out[k] = np.exp(-logdet / q)
-        else:
-            tr = const[0, 0]
-            for i in range(s):
-                for j in range(active[i]):
-                    tr += hh[i, j] * hh[i, j]
-            out[k] = 1.0 / tr
+        out[k] = _solved_score(work, hh, active, d_criterion, const[0, 0], const)
     return out
 
 

@@ -64,11 +64,13 @@ def main() -> None:
     head = f"{'N':>4} | {'analysis':>10} | {'reference':>10} | {'fast, one':>10} | {'fast, batch':>11} | {'neighbours':>11} | {'batch x':>8} | {'neigh. x':>8}"
     print(head)
     print("-" * len(head))
+    kernels = []
     for n in sizes:
         study, setup, layout, base = make(n)
         rng = np.random.default_rng(0)
         cands = np.array([rng.permutation(base) for _ in range(200)])
         ev = Evaluator(setup, layout, study.facts.n_conditions)
+        plain = Evaluator(setup, layout, study.facts.n_conditions, compiled=False)
         nb = ev.neighbours(cands[0])
         n_neigh = nb.change_detection.size + len(nb.swap_pairs)
         for part in ("detection", "estimation"):
@@ -94,9 +96,15 @@ def main() -> None:
             one = rate(lambda: ev.score_many(cands[2:3], detection=det, estimation=not det), 1, min_time)
             batch = rate(lambda: ev.score_many(cands, detection=det, estimation=not det), len(cands), min_time)
             neigh = rate(lambda: ev.neighbours(cands[0], detection=det, estimation=not det), n_neigh, min_time)
+            plain_batch = rate(lambda: plain.score_many(cands, detection=det, estimation=not det), len(cands), min_time)
+            plain_neigh = rate(lambda: plain.neighbours(cands[0], detection=det, estimation=not det), n_neigh, min_time)
+            kernels.append((n, part, batch / plain_batch, neigh / plain_neigh))
             print(
                 f"{n:>4} | {part:>10} | {ref:>10,.0f} | {one:>10,.0f} | {batch:>11,.0f} | {neigh:>11,.0f} | {batch / ref:>7,.0f}x | {neigh / ref:>7,.0f}x"
             )
+    print("\nwhat the compiled kernels earn: the same evaluator with and without them (numpy paths), this run")
+    for n, part, b, nb_ in kernels:
+        print(f"  N={n:>4} {part:>10}: batch {b:6.1f}x, neighbours {nb_:6.1f}x")
     print(f"\nneighbours: all {n_neigh:,} single changes and swaps of one design at the last N, scored together")
     print(
         "targets: batch >= 100x (detection), >= 60x (estimation); neighbours >= 5,000x (detection), >= 250x (estimation)"

@@ -121,12 +121,17 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
         # one yardstick for every participant: the first participant's seed
         out.references = References.for_study(study, setup, jobs[0].seed)
         if search.workers > 1 and n > 1:
-            done = 0
-            for job, result in search_in_workers(study, out.references, search, jobs, search.workers, on_step):
-                results[job.index], seconds[job.index] = result, result.seconds if result else 0.0
-                done += 1
+            ended = []
+
+            def on_done(job: Job) -> None:
+                ended.append(job)
                 if progress:
-                    progress(done, n, job.label)
+                    progress(len(ended), n, job.label)
+
+            results, stopped = search_in_workers(study, out.references, search, jobs, search.workers, on_step, on_done)
+            seconds = {i: r.seconds for i, r in results.items() if r is not None}
+            if stopped:
+                raise KeyboardInterrupt
         else:
             for job in jobs:
                 if progress:

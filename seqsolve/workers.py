@@ -16,11 +16,12 @@ from __future__ import annotations
 import multiprocessing
 import queue as queue_module
 import signal
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
+from seqsolve.errors import InternalError
 from seqsolve.objective import References, Scorer, Weights
 from seqsolve.search import Progress, Search, SearchOptions, SearchResult
 from seqsolve.spec import Study
@@ -85,34 +86,50 @@ def search_in_workers(
     jobs: list[Job],
     workers: int,
     on_step: Callable[[Progress], None] | None = None,
-) -> Iterator[tuple[Job, SearchResult | None]]:
-    """Run the jobs in `workers` processes; yield (job, result) as each ends, and (job, None) for
-    jobs that a Ctrl-C cancelled or stopped before their search began. Raises KeyboardInterrupt
-    after the last result when a Ctrl-C came."""
+    on_done: Callable[[Job], None] | None = None,
+) -> tuple[dict[int, SearchResult | None], bool]:
+    """Run the jobs in `workers` processes. Returns each job's result by index (None for jobs
+    that a Ctrl-C cancelled or stopped before their search began) and whether a Ctrl-C came.
+
+    on_step gets the searches' progress reports and on_done each job as it ends, both in this
+    process; a Ctrl-C anywhere in here stops every running search at its next step."""
     ctx = multiprocessing.get_context("spawn")  # no fork of a process that holds solver threads
     steps, stop = ctx.Queue(), ctx.Event()
+    results: dict[int, SearchResult | None] = {}
     interrupted = False
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_start_worker, initargs=(steps, stop))
+    # the workers start with Ctrl-C ignored (a disposition kept across exec), so that one pressed
+    # while they import cannot kill them before _start_worker runs
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
+        pool = ProcessPoolExecutor(
+            max_workers=workers, mp_context=ctx, initializer=_start_worker, initargs=(steps, stop)
+        )
         futures = {pool.submit(_run_job, study, references, options, job): job for job in jobs}
-        pending = set(futures)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    pending = set(futures)
+    try:
         while pending:
             try:
                 done, pending = wait(pending, timeout=0.25, return_when=FIRST_COMPLETED)
+                _drain(steps, on_step)
+                for f in done:
+                    results[futures[f].index] = _result(f, interrupted)
+                    if on_done:
+                        on_done(futures[f])
             except KeyboardInterrupt:
                 interrupted = True
                 stop.set()
                 for f in pending:
                     f.cancel()
-                done, pending = wait(pending).done, set()
-            _drain(steps, on_step)
-            for f in done:
-                yield futures[f], _result(f, interrupted)
     finally:
+        stop.set()  # whatever ended this loop, no search may outlive it
         pool.shutdown(wait=True, cancel_futures=True)
         _drain(steps, on_step)
-    if interrupted:
-        raise KeyboardInterrupt
+    for f, job in futures.items():  # those a Ctrl-C caught between wait and collection
+        if job.index not in results:
+            results[job.index] = _result(f, interrupted)
+    return results, interrupted
 
 
 def _result(future, interrupted: bool) -> SearchResult | None:
@@ -122,10 +139,12 @@ def _result(future, interrupted: bool) -> SearchResult | None:
         return future.result()
     except KeyboardInterrupt:  # the stop came while the search's starts were sampled
         return None
-    except BrokenProcessPool:  # a terminal's Ctrl-C reached a worker still starting up
+    except BrokenProcessPool as exc:  # a worker was killed from outside (out of memory, say)
         if interrupted:
             return None
-        raise
+        raise InternalError(
+            "a worker process died during the search (out of memory?); run again, with fewer --workers"
+        ) from exc
 
 
 def _drain(steps, on_step) -> None:

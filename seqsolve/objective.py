@@ -14,10 +14,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from seqsolve.efficiency.fast import Evaluator
+from seqsolve.efficiency.fast import DirectScorer, Evaluator
 from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.metrics import counterbalance_deviation
-from seqsolve.efficiency.reference import covariance, detection_matrix, efficiency, fir_matrix
 from seqsolve.efficiency.setup import AnalysisSetup, make_setup
 from seqsolve.score import evaluator_for, onsets_fixed, references
 from seqsolve.spec import Study
@@ -101,6 +100,7 @@ class Scorer:
         self.gaps = gaps
         self.setup = setup or make_setup(study)
         self.fixed = onsets_fixed(study)
+        self.direct = DirectScorer(self.setup)
         self.lengths = [int(n) for n in study.facts.counts.sum(axis=1)]
         self.splits = np.cumsum(self.lengths)[:-1]
         self._evaluator: Evaluator | None = None
@@ -154,23 +154,15 @@ class Scorer:
         return self.combine(det, est, cb)
 
     def _one(self, runs: list[np.ndarray], detection: bool = True, estimation: bool = True) -> tuple[float, float]:
-        """Both efficiencies of one design on its own schedule, the straightforward way: when onsets
-        move with the labels, building the design matrices directly is cheaper than an Evaluator."""
+        """Both efficiencies of one design on its own schedule, exactly: when onsets move with the
+        labels, building the design matrices directly is cheaper than an Evaluator."""
         if self.fixed:
             return self.evaluator(runs).score(np.concatenate(runs))
         schedules = make_schedules(self.study, runs, self.seed, self.gaps)
         layout = make_layout(
             self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
         )
-        codes, s = np.concatenate(runs), self.setup
-        det = est = float("nan")
-        if detection:
-            det = efficiency(
-                covariance(s, layout, detection_matrix(s, layout, codes)), s.detection_contrast(), s.criterion
-            )
-        if estimation:
-            est = efficiency(covariance(s, layout, fir_matrix(s, layout, codes)), s.estimation_contrast(), s.criterion)
-        return det, est
+        return self.direct.score(layout, np.concatenate(runs), detection, estimation)
 
     def score(self, runs: list[np.ndarray]) -> float:
         return float(self.score_many([runs])[0])

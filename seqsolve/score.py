@@ -6,7 +6,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from seqsolve.efficiency.fast import Evaluator, batch_efficiency
+from seqsolve.efficiency.fast import DirectScorer, Evaluator, batch_efficiency
 from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.limits import estimation_bound_identity
 from seqsolve.efficiency.metrics import conditional_entropy, counterbalance_deviation, max_correlation
@@ -76,9 +76,12 @@ def _score_orderings(
     if onsets_fixed(study):
         ev = evaluator_for(study, setup, make_schedules(study, designs[0], seed))
         return ev.score_many(np.array([np.concatenate(d) for d in designs]))
+    direct = DirectScorer(setup)  # onsets move with the labels: each design on its own schedule
     det, est = [], []
     for d in designs:
-        a, b = evaluator_for(study, setup, make_schedules(study, d, seed)).score(np.concatenate(d))
+        sched = make_schedules(study, d, seed)
+        layout = make_layout(setup, [s.onsets for s in sched], [s.n_volumes for s in sched], trial_durations(study))
+        a, b = direct.score(layout, np.concatenate(d))
         det.append(a)
         est.append(b)
     return np.array(det), np.array(est)

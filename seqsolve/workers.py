@@ -14,6 +14,7 @@ and its result being sent back.
 from __future__ import annotations
 
 import multiprocessing
+import os
 import queue as queue_module
 import signal
 from collections.abc import Callable
@@ -58,11 +59,12 @@ def search_participant(
 
 _STEPS = None  # the worker's queue of progress reports to the main process
 _STOP = None  # the main process's stop flag (an Event)
+_PARENT = None  # the main process's pid: a worker whose parent died stops too
 
 
 def _start_worker(steps, stop) -> None:
-    global _STEPS, _STOP
-    _STEPS, _STOP = steps, stop
+    global _STEPS, _STOP, _PARENT
+    _STEPS, _STOP, _PARENT = steps, stop, os.getppid()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides; see the module docstring
 
 
@@ -75,7 +77,7 @@ def _run_job(study: Study, references: References, options: SearchOptions, job: 
 def _report(p: Progress) -> None:
     """A search step's progress: to the main process, and a stop there ends the search here."""
     _STEPS.put(p)
-    if _STOP.is_set():
+    if _STOP.is_set() or os.getppid() != _PARENT:
         raise KeyboardInterrupt  # Search.run keeps its best design and returns
 
 

@@ -105,6 +105,17 @@ def test_every_single_change_and_swap_matches_reference(case, compiled):
         assert close(nb.swap_detection[s], ref[0]) and close(nb.swap_estimation[s], ref[1])
 
 
+@pytest.mark.parametrize("case", list(CASES))
+def test_direct_scores_of_single_designs_match_reference(case):
+    # the search's path when onsets move with the labels: no Evaluator, the same numbers
+    study, setup, layout, codes, rng = build(case)
+    direct = fast.DirectScorer(setup)
+    for d in [codes] + [rng.permutation(codes) for _ in range(3)]:
+        a, b = direct.score(layout, d)
+        ref = reference_scores(setup, layout, d)
+        assert close(a, ref[0]) and close(b, ref[1]), (a, b, ref)
+
+
 def test_cases_cover_every_compiled_estimation_kernel():
     kinds = {}
     for case in CASES:

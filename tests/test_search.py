@@ -300,15 +300,25 @@ def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path, wor
     out = tmp_path / "out"
     cmd = [sys.executable, "-c", "from seqsolve.cli import main; main()", "generate", str(spec), "-o", str(out)]
     cmd += ["--workers", str(workers)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=group)
-    for line in proc.stderr:  # wait until the search reports its first step, then press Ctrl-C
-        if "best" in line:
-            break
-    if group:
-        os.killpg(proc.pid, signal.SIGINT)
-    else:
-        proc.send_signal(signal.SIGINT)
-    stdout, _ = proc.communicate(timeout=300)
+    # a session of its own, so that whatever happens no process of it outlives the test
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    try:
+        for line in proc.stderr:  # wait until the search reports its first step, then press Ctrl-C
+            if "best" in line:
+                break
+        if group:
+            os.killpg(proc.pid, signal.SIGINT)
+        else:
+            proc.send_signal(signal.SIGINT)
+        stdout, _ = proc.communicate(timeout=300)
+    finally:
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        proc.wait()
+        proc.stdout.close()
+        proc.stderr.close()
     assert proc.returncode == 0, stdout
     assert "interrupted" in stdout
     manifest = json.loads((out / "manifest.json").read_text())

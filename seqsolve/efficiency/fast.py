@@ -76,6 +76,45 @@ def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") 
     return np.where(singular, 0.0, eff), singular
 
 
+class DirectScorer:
+    """Exact scores of single designs whose onsets depend on their labels (no fixed timing to
+    precompute on): each design's matrices are built as reference.py builds them, but the model is
+    reduced to X'(I - QQ')X after prewhitening, with Q the nuisance basis of the run lengths (kept
+    per set of lengths), and factorised by Cholesky with the evaluator's singularity rule; no
+    SVD of the whole model. BLAS is pinned to one thread."""
+
+    def __init__(self, setup: AnalysisSetup):
+        self.setup = setup
+        self.c_det, self.c_est = setup.detection_contrast(), setup.estimation_contrast()
+        self._bases: dict[tuple[int, ...], np.ndarray] = {}
+
+    def _basis(self, run_lengths: list[int]) -> np.ndarray:
+        key = tuple(int(n) for n in run_lengths)
+        if key not in self._bases:
+            s = self.setup
+            nuis = block_nuisance(list(key), s.tr, s.high_pass_cutoff, s.drift_degree)
+            self._bases[key] = residual_basis(whiten(nuis, s.ar1, list(key)))
+        return self._bases[key]
+
+    def _efficiency(self, x: np.ndarray, layout: Layout, contrast: np.ndarray) -> float:
+        xw = whiten(x, self.setup.ar1, layout.run_lengths)
+        q = self._basis(layout.run_lengths)
+        xw = xw - q @ (q.T @ xw)
+        return float(batch_efficiency((xw.T @ xw)[None], contrast, self.setup.criterion)[0][0])
+
+    def score(self, layout: Layout, codes: np.ndarray, detection: bool = True, estimation: bool = True):
+        """(detection, estimation) of one design on its own layout; NaN for a part not asked for."""
+        from seqsolve.efficiency.reference import detection_matrix, fir_matrix
+
+        det = est = float("nan")
+        with one_blas_thread():
+            if detection:
+                det = self._efficiency(detection_matrix(self.setup, layout, codes), layout, self.c_det)
+            if estimation:
+                est = self._efficiency(fir_matrix(self.setup, layout, codes), layout, self.c_est)
+        return det, est
+
+
 @dataclass
 class Neighbours:
     """Scores of every single change (trial i to condition c) and every swap of two trials."""

@@ -151,9 +151,14 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
         if result is not None and result.stopped == "interrupted":
             out.interrupted = True
         if result is not None and not Judge(study, earlier).ok(result.runs):
-            result = (
-                None if out.interrupted else search_participant(study, out.references, search, job, on_step, earlier)
-            )
+            result = None
+            if not out.interrupted:
+                try:
+                    result = search_participant(study, out.references, search, job, on_step, earlier)
+                except KeyboardInterrupt:  # stopped while this search sampled its starts
+                    out.interrupted = True
+                if result is not None and result.stopped == "interrupted":
+                    out.interrupted = True
         if result is None:
             out.append(_unsearched(*args))  # only after a Ctrl-C
             continue

@@ -22,6 +22,7 @@ from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
+from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.objective import References, Scorer, Weights
 from seqsolve.search import Progress, Search, SearchOptions, SearchResult
@@ -47,8 +48,6 @@ def search_participant(
     earlier: list | None = None,
 ) -> SearchResult:
     """Search one participant's design (valid, and different from `earlier` participants' ones)."""
-    from seqsolve.efficiency.setup import make_setup
-
     earlier = earlier or []
     setup = make_setup(study)
     starts = Search.sample_starts(study, job.seed, earlier, options)

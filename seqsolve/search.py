@@ -356,12 +356,16 @@ class Search:
             return True
         return False
 
+    def _swap_pairs(self, codes: np.ndarray, limit: int | None) -> np.ndarray:
+        """Same-run pairs of differently labelled trials, a random sample of `limit` if more."""
+        pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
+        if limit is not None and len(pairs) > limit:
+            pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
+        return pairs
+
     def _swap_step(self) -> bool:
         codes = np.concatenate(self.current)
-        pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
-        limit = self.options.swap_sample if self.scorer.use_est else len(pairs)
-        if len(pairs) > limit:
-            pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
+        pairs = self._swap_pairs(codes, self.options.swap_sample if self.scorer.use_est else None)
         if len(pairs) == 0:
             return False
         gains = self.scorer.swap_gains(self.current, pairs) - self.current_score
@@ -381,10 +385,7 @@ class Search:
         whose score stays within `travel` of the best score (worse than the current one allowed),
         never undoing one of the last few moves. True if the design moved."""
         codes = np.concatenate(self.current)
-        pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
-        limit = self.options.swap_sample
-        if len(pairs) > limit:
-            pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
+        pairs = self._swap_pairs(codes, self.options.swap_sample)
         if len(pairs) == 0:
             return False
         scores = self.scorer.swap_gains(self.current, pairs)

@@ -21,6 +21,7 @@ from threadpoolctl import ThreadpoolController
 from seqsolve.efficiency import kernels
 from seqsolve.efficiency.grid import Layout, fir_bins
 from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
+from seqsolve.efficiency.reference import detection_matrix, fir_matrix
 from seqsolve.efficiency.setup import AnalysisSetup
 
 #: information matrices with a smaller reciprocal condition number count as singular
@@ -76,6 +77,12 @@ def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") 
     return np.where(singular, 0.0, eff), singular
 
 
+def nuisance_basis(setup: AnalysisSetup, run_lengths: list[int]) -> np.ndarray:
+    """Orthonormal basis Q of the prewhitened nuisance space (intercepts, drifts) of these runs."""
+    nuis = block_nuisance(run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
+    return residual_basis(whiten(nuis, setup.ar1, run_lengths))
+
+
 class DirectScorer:
     """Exact scores of single designs whose onsets depend on their labels (no fixed timing to
     precompute on): each design's matrices are built as reference.py builds them, but the model is
@@ -91,9 +98,7 @@ class DirectScorer:
     def _basis(self, run_lengths: list[int]) -> np.ndarray:
         key = tuple(int(n) for n in run_lengths)
         if key not in self._bases:
-            s = self.setup
-            nuis = block_nuisance(list(key), s.tr, s.high_pass_cutoff, s.drift_degree)
-            self._bases[key] = residual_basis(whiten(nuis, s.ar1, list(key)))
+            self._bases[key] = nuisance_basis(self.setup, list(key))
         return self._bases[key]
 
     def _efficiency(self, x: np.ndarray, layout: Layout, contrast: np.ndarray) -> float:
@@ -104,8 +109,6 @@ class DirectScorer:
 
     def score(self, layout: Layout, codes: np.ndarray, detection: bool = True, estimation: bool = True):
         """(detection, estimation) of one design on its own layout; NaN for a part not asked for."""
-        from seqsolve.efficiency.reference import detection_matrix, fir_matrix
-
         det = est = float("nan")
         with one_blas_thread():
             if detection:
@@ -176,8 +179,7 @@ class Evaluator:
         self.circular = circular
         self.compiled = compiled
         with one_blas_thread():
-            nuis = block_nuisance(layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
-            self.q = residual_basis(whiten(nuis, setup.ar1, layout.run_lengths))
+            self.q = nuisance_basis(setup, layout.run_lengths)
             self.det = self._detection_part()
             self.fir_scan = self._fir_scans()  # (N, lags): volume index of each trial's lag, -1 outside
             lagged = self.fir_scan * setup.fir_lags + np.arange(setup.fir_lags)
@@ -365,8 +367,9 @@ class Evaluator:
                 scan = self.fir_scan[t, lag]
                 order = np.argsort(scan, kind="stable")
                 ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
-                self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, w.T @ self.q)
-                self.fir_bits = self._fir_bits(diag, off, w.T @ self.q)
+                qw = w.T @ self.q
+                self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, qw)
+                self.fir_bits = self._fir_bits(diag, off, qw)
         rw = w - self.q @ (self.q.T @ w)
         return rw.T @ rw
 
@@ -387,11 +390,12 @@ class Evaluator:
         A part not asked for comes back as NaN.
         """
         codes = np.atleast_2d(codes)
+        codes64 = np.ascontiguousarray(codes, dtype=np.int64)  # what the kernels take
         det = est = np.full(codes.shape[0], np.nan)
         with one_blas_thread():
             if detection and self.band is not None:
                 det = kernels.band_scores(
-                    np.ascontiguousarray(codes, dtype=np.int64),
+                    codes64,
                     self.det.col.astype(np.int64),
                     self.det.group.astype(np.int64),
                     self.det.nb,
@@ -405,7 +409,7 @@ class Evaluator:
                 det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
             if estimation and self.fir_bits is not None:
                 est = kernels.fir_bit_scores(
-                    np.ascontiguousarray(codes, dtype=np.int64),
+                    codes64,
                     self.est.col.astype(np.int64),
                     *self.fir_bits,
                     *self.k_est,
@@ -414,7 +418,7 @@ class Evaluator:
             elif estimation and self.fir_kernel is not None:
                 ptr, trial, lag, diag, off, qw = self.fir_kernel
                 est = kernels.fir_scores(
-                    np.ascontiguousarray(codes, dtype=np.int64),
+                    codes64,
                     self.est.col.astype(np.int64),
                     ptr,
                     trial,
@@ -600,23 +604,28 @@ class Evaluator:
         lo = np.where(cols >= 0, cols, part.p).min(axis=1)
         hi = cols.max(axis=1)
         key = lo * (part.p + 1) + np.maximum(hi, 0)
+        prepared = kernels.prepare_contrast(contrast)
+
+        def whole(sel: np.ndarray) -> np.ndarray:  # one whole factorisation per candidate
+            return kernels.update_scores(
+                m,
+                xp,
+                *source,
+                part.col.astype(np.int64),
+                part.group.astype(np.int64),
+                part.nb,
+                conds[sel],
+                trials[sel],
+                signs,
+                *prepared,
+                d_crit,
+            )
+
         for k in np.unique(key):
             idx = np.flatnonzero(key == k)
             first, last = int(lo[idx[0]]), int(hi[idx[0]])
             if first == part.p:  # baseline trials only: the design does not change
-                out[idx] = kernels.update_scores(
-                    m,
-                    xp,
-                    *source,
-                    part.col.astype(np.int64),
-                    part.group.astype(np.int64),
-                    part.nb,
-                    conds[idx[:1]],
-                    trials[idx[:1]],
-                    signs,
-                    *kernels.prepare_contrast(contrast),
-                    d_crit,
-                )[0]
+                out[idx] = whole(idx[:1])[0]
                 continue
             if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
                 starts = [first] if first == last else [first, last]
@@ -624,19 +633,7 @@ class Evaluator:
                 if done is not None:
                     out[idx] = done
                     continue
-            out[idx] = kernels.update_scores(
-                m,
-                xp,
-                *source,
-                part.col.astype(np.int64),
-                part.group.astype(np.int64),
-                part.nb,
-                conds[idx],
-                trials[idx],
-                signs,
-                *kernels.prepare_contrast(contrast),
-                d_crit,
-            )
+            out[idx] = whole(idx)
         return out
 
     def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:

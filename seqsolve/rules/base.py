@@ -124,6 +124,10 @@ class Rule(BaseModel):
         """Add the rule to the transition-count model; return False if it cannot be said there."""
         return False
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:  # pragma: no cover - abstract
+        """State the rule as local primitives of seqsolve.moves.MoveRules (for fast swap checks)."""
+        raise NotImplementedError(f"rule kind {getattr(self, 'kind', '?')} has no local form for the search")
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:  # pragma: no cover
         """Violations in one participant's runs (integer codes per run). Plain numpy."""
         raise NotImplementedError

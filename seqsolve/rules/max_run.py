@@ -45,6 +45,10 @@ class MaxRun(Rule):
             f.limit_stretch(t.codes[0], 1, self.length, guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        for t in facts.targets(self.conditions, include_baseline=True):
+            moves.limit_stretch(t.codes, 1, self.length)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         for t in facts.targets(self.conditions, include_baseline=True):

@@ -62,6 +62,11 @@ class MinGap(Rule):
                         f.cp.add(f.m[r][j, i] == 0).only_enforce_if(guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        for t in facts.targets(self.conditions, include_baseline=True):
+            other = None if self.other is None else facts.resolve(self.other).codes
+            moves.keep_apart(t.codes, other, self.gap)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         for t in facts.targets(self.conditions, include_baseline=True):
@@ -72,14 +77,16 @@ class MinGap(Rule):
                     close = np.flatnonzero(np.diff(pos_a) <= self.gap)
                     pairs = [(pos_a[i], pos_a[i + 1]) for i in close]
                 else:
-                    pos_b = np.flatnonzero(np.isin(seq, other.codes))
-                    both = np.concatenate([pos_a, pos_b])
-                    side = np.concatenate([np.zeros(len(pos_a)), np.ones(len(pos_b))])
-                    order = np.argsort(both, kind="stable")
-                    both, side = both[order], side[order]
-                    # only neighbours in position order can be the closest a-b pair
-                    close = np.flatnonzero((np.diff(both) <= self.gap) & (np.diff(side) != 0))
-                    pairs = [(both[i], both[i + 1]) for i in close]
+                    is_b = np.isin(seq, other.codes)
+                    # every target trial against the other's trials within the gap (a trial that
+                    # belongs to both sets is not its own neighbour); each pair once
+                    found = set()
+                    for p in pos_a:
+                        lo, hi = max(0, p - self.gap), min(len(seq), p + self.gap + 1)
+                        for q in lo + np.flatnonzero(is_b[lo:hi]):
+                            if q != p:
+                                found.add((min(p, q), max(p, q)))
+                    pairs = sorted(found)
                 for p, q in pairs:
                     out.append(
                         Violation(self.name(facts), r, (int(p), int(q)), f"only {int(q - p - 1)} trials between them")

@@ -51,6 +51,10 @@ class MinRun(Rule):
             f.limit_stretch(t.codes[0], self.length, 10**9, guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        for t in facts.targets(self.conditions, include_baseline=False):
+            moves.limit_stretch(t.codes, self.length, 1 << 40)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         for t in facts.targets(self.conditions, include_baseline=False):

@@ -40,6 +40,9 @@ class ParticipantsDiffer(Rule):
                     # at most n - d positions agree with that earlier run
                     m.cp.add(sum(same) <= len(prev) - self.min_differences).only_enforce_if(guard)
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        moves.differ_by(self.min_differences)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         return []
 

@@ -85,6 +85,11 @@ class Position(Rule):
             f.cp.add(sum(ends[c] for c in t.codes) == want).only_enforce_if(guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        t = self.target(facts)
+        for r in self.run_indices(facts):
+            moves.restrict(r, self.places(facts.run_length(r)), t.codes, self.placement)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         t = self.target(facts)
         out = []

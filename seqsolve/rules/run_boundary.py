@@ -55,6 +55,10 @@ class RunBoundary(Rule):
                 f.cp.add(sum(ends) + sum(starts) <= 1).only_enforce_if(guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        for t in facts.targets(self.conditions, include_baseline=False):
+            moves.separate_runs(t.codes, self.window)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         w = self.window

@@ -66,6 +66,14 @@ class EvenSpread(Rule):
                     m.cp.add(expr >= lo).only_enforce_if(guard)
                     m.cp.add(expr <= hi).only_enforce_if(guard)
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        for t in facts.targets(self.conditions, include_baseline=False):
+            for r in range(facts.n_runs):
+                n_run = facts.run_length(r)
+                n_t = int(facts.counts[r, list(t.codes)].sum())
+                spans = [(a, b, *self.allowed(n_t, n_run, b - a, self.tolerance)) for a, b in self.spans(n_run)]
+                moves.bound_spans(t.codes, r, spans)
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         for t in facts.targets(self.conditions, include_baseline=False):

@@ -110,6 +110,15 @@ class BalancedTransitions(Rule):
         self._add_bounds(f.cp, count_of, f.facts, guard)
         return True
 
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        groups = self.bounds(facts)
+        moves.bound_pairs(
+            [g for g, _, _ in groups],
+            np.array([lo for _, lo, _ in groups]),
+            np.array([hi for _, _, hi in groups]),
+            self.cyclic,
+        )
+
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         out = []
         names = facts.names
@@ -186,6 +195,10 @@ class ForbiddenTransition(Rule):
                 for j in b.codes:
                     f.cp.add(f.m[r][i, j] == 0).only_enforce_if(guard)
         return True
+
+    def add_moves(self, facts: StudyFacts, moves) -> None:
+        a, b = self._pair(facts)
+        moves.forbid_pair(a.codes, b.codes)
 
     def check(self, facts: StudyFacts, runs: list[np.ndarray]) -> list[Violation]:
         a, b = self._pair(facts)

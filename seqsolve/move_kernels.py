@@ -1,0 +1,284 @@
+"""Compiled local checks and updates behind seqsolve.moves (numba, cached per machine).
+
+`t` is a moves.Tables, `s` a moves.State (named tuples of arrays). A swap is judged by making it in
+place, checking what it can have broken, and undoing it; counters are changed and restored the
+same way, so judging never allocates.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from seqsolve.moves import NO_LIMIT
+
+
+@njit(cache=True)
+def _stretch_ok(t, codes, lo_run, hi_run, q, k):
+    """Is the stretch of set k through position q (a member) within its bounds?"""
+    member = t.st_member[k]
+    # walk no further than decides the answer: past the longest allowed, or to the shortest
+    cap = t.st_hi[k] + 1 if t.st_hi[k] < NO_LIMIT else t.st_lo[k]
+    n = 1
+    p = q - 1
+    while p >= lo_run and n < cap and member[codes[p]]:
+        n += 1
+        p -= 1
+    p = q + 1
+    while p < hi_run and n < cap and member[codes[p]]:
+        n += 1
+        p += 1
+    return t.st_lo[k] <= n <= t.st_hi[k]
+
+
+@njit(cache=True)
+def _near_ok(t, codes, r, p):
+    """Rules around position p of run r (which holds its new label): neighbours, stretches, gaps."""
+    lo_run = t.run_start[r]
+    hi_run = lo_run + t.run_len[r]
+    c = codes[p]
+    if p > lo_run and t.forbid[codes[p - 1], c]:
+        return False
+    if p + 1 < hi_run and t.forbid[c, codes[p + 1]]:
+        return False
+    for k in range(t.st_member.shape[0]):
+        for q in range(max(p - 1, lo_run), min(p + 2, hi_run)):
+            if t.st_member[k, codes[q]] and not _stretch_ok(t, codes, lo_run, hi_run, q, k):
+                return False
+    for g in range(t.gp_gap.shape[0]):
+        in_a = t.gp_a[g, c]
+        in_b = t.gp_b[g, c]
+        if not (in_a or in_b):
+            continue
+        gap = t.gp_gap[g]
+        for q in range(max(p - gap, lo_run), min(p + gap + 1, hi_run)):
+            if q == p:  # a trial is not its own neighbour, even when it belongs to both sets
+                continue
+            d = codes[q]
+            if (in_a and t.gp_b[g, d]) or (in_b and t.gp_a[g, d]):
+                return False
+    return True
+
+
+@njit(cache=True)
+def _boundary_ok(t, codes, r):
+    """Breaks on both sides of run r."""
+    n_runs = t.run_len.shape[0]
+    for b in range(t.bd_w.shape[0]):
+        w = t.bd_w[b]
+        for left in (r - 1, r):
+            right = left + 1
+            if left < 0 or right >= n_runs:
+                continue
+            end = t.run_start[left] + t.run_len[left]
+            tail = False
+            for p in range(max(end - w, t.run_start[left]), end):
+                if t.bd_member[b, codes[p]]:
+                    tail = True
+            if not tail:
+                continue
+            start = t.run_start[right]
+            for p in range(start, min(start + w, start + t.run_len[right])):
+                if t.bd_member[b, codes[p]]:
+                    return False
+    return True
+
+
+@njit(cache=True)
+def _old(codes, i, j, p):
+    """Label at p before the swap of i and j (codes holds the swapped labels)."""
+    if p == i:
+        return codes[j]
+    if p == j:
+        return codes[i]
+    return codes[p]
+
+
+@njit(cache=True)
+def _pair_starts(t, r, i, j, cyclic, out):
+    """Positions p whose pair (p, next) the swap of i and j touches; with cyclic counts the last
+    trial's next is the first. Returns how many were written to out (at most 5)."""
+    lo = t.run_start[r]
+    hi = lo + t.run_len[r]
+    n = 0
+    wrap = cyclic and (i == lo or j == lo)  # the pair (last, first) changes
+    for p in (i - 1, i, j - 1, j, hi - 1 if wrap else -1):
+        if p < lo or p >= hi:
+            continue
+        dup = False
+        for m in range(n):
+            if out[m] == p:
+                dup = True
+        if not dup:
+            out[n] = p
+            n += 1
+    return n
+
+
+@njit(cache=True)
+def _pairs_change(t, s, r, i, j, sign):
+    """Add (sign 1) or take back (sign -1) the swap's pair-count changes; codes hold the swapped labels."""
+    codes = s.codes
+    lo = t.run_start[r]
+    hi = lo + t.run_len[r]
+    starts = np.empty(5, dtype=np.int64)
+    for rule in range(t.pb_group.shape[0]):
+        g = t.pb_group[rule, r]
+        n = _pair_starts(t, r, i, j, t.pb_cyclic[rule], starts)
+        for m in range(n):
+            p = starts[m]
+            q = p + 1
+            if q >= hi:
+                if not t.pb_cyclic[rule] or t.run_len[r] < 2:
+                    continue
+                q = lo
+            s.pb_count[rule, g, _old(codes, i, j, p), _old(codes, i, j, q)] -= sign
+            s.pb_count[rule, g, codes[p], codes[q]] += sign
+
+
+@njit(cache=True)
+def _pairs_ok(t, s, r, i, j):
+    """With the swap's changes added: are the touched pair counts within bounds?"""
+    codes = s.codes
+    lo = t.run_start[r]
+    hi = lo + t.run_len[r]
+    starts = np.empty(5, dtype=np.int64)
+    for rule in range(t.pb_group.shape[0]):
+        g = t.pb_group[rule, r]
+        n = _pair_starts(t, r, i, j, t.pb_cyclic[rule], starts)
+        for m in range(n):
+            p = starts[m]
+            q = p + 1
+            if q >= hi:
+                if not t.pb_cyclic[rule] or t.run_len[r] < 2:
+                    continue
+                q = lo
+            a, b = codes[p], codes[q]
+            if s.pb_count[rule, g, a, b] > t.pb_high[rule, g, a, b]:
+                return False
+            a, b = _old(codes, i, j, p), _old(codes, i, j, q)
+            if s.pb_count[rule, g, a, b] < t.pb_low[rule, g, a, b]:
+                return False
+    return True
+
+
+@njit(cache=True)
+def _spans_change(t, s, i, j, sign):
+    """Span counts after the swap (sign 1) or back (sign -1); codes hold the swapped labels."""
+    codes = s.codes
+    for k in range(t.sp_member.shape[0]):
+        now_i = t.sp_member[k, codes[i]]
+        now_j = t.sp_member[k, codes[j]]
+        if now_i == now_j:
+            continue
+        # the member moved from j to i (now_i) or from i to j
+        gain, lose = (i, j) if now_i else (j, i)
+        for m in range(t.sp_ptr[k, gain], t.sp_ptr[k, gain + 1]):
+            s.sp_count[t.sp_idx[m]] += sign
+        for m in range(t.sp_ptr[k, lose], t.sp_ptr[k, lose + 1]):
+            s.sp_count[t.sp_idx[m]] -= sign
+
+
+@njit(cache=True)
+def _spans_ok(t, s, i, j):
+    codes = s.codes
+    for k in range(t.sp_member.shape[0]):
+        if t.sp_member[k, codes[i]] == t.sp_member[k, codes[j]]:
+            continue
+        for p in (i, j):
+            for m in range(t.sp_ptr[k, p], t.sp_ptr[k, p + 1]):
+                c = s.sp_count[t.sp_idx[m]]
+                if c < t.sp_lo[t.sp_idx[m]] or c > t.sp_hi[t.sp_idx[m]]:
+                    return False
+    return True
+
+
+@njit(cache=True)
+def _dist_change(t, s, r, i, j, sign):
+    """Distances to earlier runs after the swap (sign 1) or back (-1); codes hold the swapped labels."""
+    codes = s.codes
+    n_runs = t.run_len.shape[0]
+    oi = i - t.run_start[r]
+    oj = j - t.run_start[r]
+    for e in range(t.earlier.shape[0]):
+        for q in range(n_runs):
+            if t.run_len[q] != t.run_len[r]:
+                continue
+            a = t.earlier[e, t.run_start[q] + oi]
+            b = t.earlier[e, t.run_start[q] + oj]
+            d = int(codes[i] != a) - int(codes[j] != a) + int(codes[j] != b) - int(codes[i] != b)
+            s.dist[e, q, r] += sign * d
+
+
+@njit(cache=True)
+def _dist_ok(t, s, r):
+    n_runs = t.run_len.shape[0]
+    need = t.min_diff[0]
+    for e in range(t.earlier.shape[0]):
+        total = 0
+        for q in range(n_runs):
+            total += s.dist[e, q, q]
+            if need > 0 and t.run_len[q] == t.run_len[r] and s.dist[e, q, r] < need:
+                return False
+        if total == 0:  # the whole design repeats an earlier participant's
+            return False
+    return True
+
+
+@njit(cache=True)
+def swap_valid(t, s, i, j):
+    """Would swapping trials i and j keep every rule? The state is left as it was."""
+    codes = s.codes
+    ci = codes[i]
+    cj = codes[j]
+    if ci == cj or i == j:
+        return False
+    r = t.run_of[i]
+    if t.run_of[j] != r:
+        return False
+    if not t.allowed[i, cj] or not t.allowed[j, ci]:
+        return False
+    codes[i] = cj
+    codes[j] = ci
+    ok = _near_ok(t, codes, r, i) and _near_ok(t, codes, r, j)
+    if ok and t.bd_w.shape[0] > 0:
+        ok = _boundary_ok(t, codes, r)
+    if ok and t.pb_group.shape[0] > 0:
+        _pairs_change(t, s, r, i, j, 1)
+        ok = _pairs_ok(t, s, r, i, j)
+        _pairs_change(t, s, r, i, j, -1)
+    if ok and t.sp_member.shape[0] > 0:
+        _spans_change(t, s, i, j, 1)
+        ok = _spans_ok(t, s, i, j)
+        _spans_change(t, s, i, j, -1)
+    if ok and t.earlier.shape[0] > 0:
+        _dist_change(t, s, r, i, j, 1)
+        ok = _dist_ok(t, s, r)
+        _dist_change(t, s, r, i, j, -1)
+    codes[i] = ci
+    codes[j] = cj
+    return ok
+
+
+@njit(cache=True)
+def swaps_valid(t, s, pairs):
+    out = np.zeros(pairs.shape[0], dtype=np.bool_)
+    for m in range(pairs.shape[0]):
+        out[m] = swap_valid(t, s, pairs[m, 0], pairs[m, 1])
+    return out
+
+
+@njit(cache=True)
+def apply_swap(t, s, i, j):
+    """Swap trials i and j and bring every counter up to date."""
+    codes = s.codes
+    r = t.run_of[i]
+    ci = codes[i]
+    codes[i] = codes[j]
+    codes[j] = ci
+    if t.pb_group.shape[0] > 0:
+        _pairs_change(t, s, r, i, j, 1)
+    if t.sp_member.shape[0] > 0:
+        _spans_change(t, s, i, j, 1)
+    if t.earlier.shape[0] > 0:
+        _dist_change(t, s, r, i, j, 1)

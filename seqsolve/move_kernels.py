@@ -282,3 +282,263 @@ def apply_swap(t, s, i, j):
         _spans_change(t, s, i, j, 1)
     if t.earlier.shape[0] > 0:
         _dist_change(t, s, r, i, j, 1)
+
+
+# -- detection scores tracked through swaps (one regressor per condition, A criterion) ------------
+#
+# d is a tracking.Track: gram (N, N) products of the trials' filtered regressors, col (K,) each
+# condition's column (-1: not modelled), contrast (q, p), m (p, p) the information X'X of the current
+# design and s (p, N) = X'R (each column's products with every trial's regressor). A swap moves the
+# difference of two trial regressors between two columns, so X'X changes in two rows and columns.
+
+RCOND = 1e-10  # the evaluator's singularity rule (fast.RCOND)
+
+#: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf (as kernels.py)
+_FAST = {"reassoc", "contract", "nsz", "arcp"}
+
+
+@njit(cache=True)
+def _swapped_information(d, codes, i, j, out):
+    """X'X after swapping trials i and j, into out (p, p)."""
+    ca = d.col[codes[i]]
+    cb = d.col[codes[j]]
+    p = out.shape[0]
+    for x in range(p):
+        for y in range(p):
+            out[x, y] = d.m[x, y]
+    delta = d.gram[i, i] + d.gram[j, j] - 2.0 * d.gram[i, j]
+    # column ca gains r_j - r_i, column cb loses it
+    for x in range(p):
+        w = d.s[x, j] - d.s[x, i]
+        if ca >= 0:
+            out[x, ca] += w
+            out[ca, x] += w
+        if cb >= 0:
+            out[x, cb] -= w
+            out[cb, x] -= w
+    if ca >= 0:
+        out[ca, ca] += delta
+    if cb >= 0:
+        out[cb, cb] += delta
+    if ca >= 0 and cb >= 0:
+        out[ca, cb] -= delta
+        out[cb, ca] -= delta
+
+
+@njit(cache=True, fastmath=_FAST)
+def a_efficiency(m, contrast, chol):
+    """1 / trace(C M^-1 C') by Cholesky; 0 when M counts as singular (pivot rule of fast.py).
+    Each contrast row's solve starts at its first non-zero weight (the rows of an FIR identity
+    contrast need only their own trailing part)."""
+    p = m.shape[0]
+    for c in range(p):
+        acc = m[c, c]
+        for k in range(c):
+            acc -= chol[c, k] * chol[c, k]
+        if acc <= RCOND * max(m[c, c], 1e-300):
+            return 0.0
+        chol[c, c] = np.sqrt(acc)
+        inv = 1.0 / chol[c, c]
+        for r in range(c + 1, p):
+            acc = m[r, c]
+            for k in range(c):
+                acc -= chol[r, k] * chol[c, k]
+            chol[r, c] = acc * inv
+    total = 0.0
+    y = np.zeros(p)
+    for q in range(contrast.shape[0]):
+        first = 0
+        while first < p and contrast[q, first] == 0.0:
+            first += 1
+        for r in range(first, p):
+            acc = contrast[q, r]
+            for k in range(first, r):
+                acc -= chol[r, k] * y[k]
+            y[r] = acc / chol[r, r]
+            total += y[r] * y[r]
+    return 1.0 / total if total > 0 else 0.0
+
+
+@njit(cache=True)
+def detection_swap_scores(d, codes, pairs):
+    """Detection efficiency after each swap of pairs (n, 2); codes is the current design."""
+    p = d.m.shape[0]
+    work = np.empty((p, p))
+    chol = np.zeros((p, p))
+    out = np.empty(pairs.shape[0])
+    for k in range(pairs.shape[0]):
+        _swapped_information(d, codes, pairs[k, 0], pairs[k, 1], work)
+        out[k] = a_efficiency(work, d.contrast, chol)
+    return out
+
+
+@njit(cache=True)
+def detection_apply(d, codes, i, j):
+    """Bring m and s up to date for the swap of i and j; codes still hold the labels before it."""
+    p = d.m.shape[0]
+    work = np.empty((p, p))
+    _swapped_information(d, codes, i, j, work)
+    for x in range(p):
+        for y in range(p):
+            d.m[x, y] = work[x, y]
+    ca = d.col[codes[i]]
+    cb = d.col[codes[j]]
+    n = d.gram.shape[0]
+    for t in range(n):
+        w = d.gram[j, t] - d.gram[i, t]
+        if ca >= 0:
+            d.s[ca, t] += w
+        if cb >= 0:
+            d.s[cb, t] -= w
+
+
+# -- estimation (FIR, bins of one TR) tracked through swaps -----------------------------------------
+#
+# e is a tracking.FirTrack: omega (V, V) = W'(I - QQ')W over volumes (a filtered 0/1 regressor's
+# products are its entries), scan (N, L) the volume in each trial's lag bin (-1: none), col (K,) the
+# first column of each condition's block (-1: not modelled), contrast (q, p), m (p, p) and
+# tv (p, V) = (rows of the 0/1 design) x omega. A swap moves, per lag, one volume between two blocks.
+
+
+@njit(cache=True)
+def _fir_swapped_information(e, codes, i, j, out):
+    """FIR X'X after swapping trials i and j, into out (p, p)."""
+    ca = e.col[codes[i]]
+    cb = e.col[codes[j]]
+    p = out.shape[0]
+    lags = e.scan.shape[1]
+    for x in range(p):
+        for y in range(p):
+            out[x, y] = e.m[x, y]
+    if ca < 0 and cb < 0:
+        return
+    for lag in range(lags):
+        vi = e.scan[i, lag]
+        vj = e.scan[j, lag]
+        for x in range(p):
+            w = 0.0
+            if vj >= 0:
+                w += e.tv[x, vj]
+            if vi >= 0:
+                w -= e.tv[x, vi]
+            if ca >= 0:
+                out[ca + lag, x] += w
+                out[x, ca + lag] += w
+            if cb >= 0:
+                out[cb + lag, x] -= w
+                out[x, cb + lag] -= w
+    for lag in range(lags):
+        vi, vj = e.scan[i, lag], e.scan[j, lag]
+        for m in range(lags):
+            ui, uj = e.scan[i, m], e.scan[j, m]
+            delta = 0.0
+            if vj >= 0 and uj >= 0:
+                delta += e.omega[vj, uj]
+            if vj >= 0 and ui >= 0:
+                delta -= e.omega[vj, ui]
+            if vi >= 0 and uj >= 0:
+                delta -= e.omega[vi, uj]
+            if vi >= 0 and ui >= 0:
+                delta += e.omega[vi, ui]
+            if ca >= 0:
+                out[ca + lag, ca + m] += delta
+            if cb >= 0:
+                out[cb + lag, cb + m] += delta
+            if ca >= 0 and cb >= 0:
+                out[ca + lag, cb + m] -= delta
+                out[cb + lag, ca + m] -= delta
+
+
+@njit(cache=True)
+def estimation_swap_scores(e, codes, pairs):
+    """Estimation efficiency after each swap of pairs (n, 2); codes is the current design."""
+    p = e.m.shape[0]
+    work = np.empty((p, p))
+    chol = np.zeros((p, p))
+    out = np.empty(pairs.shape[0])
+    for k in range(pairs.shape[0]):
+        _fir_swapped_information(e, codes, pairs[k, 0], pairs[k, 1], work)
+        out[k] = a_efficiency(work, e.contrast, chol)
+    return out
+
+
+@njit(cache=True)
+def estimation_apply(e, codes, i, j):
+    """Bring m and tv up to date for the swap of i and j; codes still hold the labels before it."""
+    p = e.m.shape[0]
+    work = np.empty((p, p))
+    _fir_swapped_information(e, codes, i, j, work)
+    for x in range(p):
+        for y in range(p):
+            e.m[x, y] = work[x, y]
+    ca = e.col[codes[i]]
+    cb = e.col[codes[j]]
+    n = e.omega.shape[0]
+    for lag in range(e.scan.shape[1]):
+        vi, vj = e.scan[i, lag], e.scan[j, lag]
+        for v in range(n):
+            w = 0.0
+            if vj >= 0:
+                w += e.omega[vj, v]
+            if vi >= 0:
+                w -= e.omega[vi, v]
+            if ca >= 0:
+                e.tv[ca + lag, v] += w
+            if cb >= 0:
+                e.tv[cb + lag, v] -= w
+
+
+@njit(cache=True)
+def tracked_moves(t, s, d, e, wd, we, n_moves, batch, late, late_at, current, best, best_codes, run_ends, seed):
+    """`n_moves` moves of the search, all compiled (see search.Search._move): each draws `batch`
+    swaps, judges them locally, scores the valid ones (wd x detection + we x estimation; a weight
+    of 0 skips its part) and makes the best one under late acceptance. Returns (current score,
+    best score, late-acceptance position, swaps judged); best_codes receives each new best design."""
+    np.random.seed(seed)
+    codes = s.codes
+    pd = d.m.shape[0]
+    pe = e.m.shape[0]
+    work_d = np.empty((pd, pd))
+    chol_d = np.zeros((pd, pd))
+    work_e = np.empty((pe, pe))
+    chol_e = np.zeros((pe, pe))
+    total = run_ends[-1]
+    judged = 0
+    for _ in range(n_moves):
+        top = -1.0
+        bi = -1
+        bj = -1
+        for _b in range(batch):
+            i = np.random.randint(0, total)
+            r = np.searchsorted(run_ends, i, side="right")
+            j = t.run_start[r] + np.random.randint(0, t.run_len[r])
+            if codes[i] == codes[j]:
+                continue
+            judged += 1
+            if not swap_valid(t, s, i, j):
+                continue
+            sc = 0.0
+            if wd != 0.0:
+                _swapped_information(d, codes, i, j, work_d)
+                sc += wd * a_efficiency(work_d, d.contrast, chol_d)
+            if we != 0.0:
+                _fir_swapped_information(e, codes, i, j, work_e)
+                sc += we * a_efficiency(work_e, e.contrast, chol_e)
+            if sc > top:
+                top = sc
+                bi = i
+                bj = j
+        slot = late_at % late.shape[0]
+        late_at += 1
+        if bi >= 0 and (top >= current - 1e-12 or top >= late[slot]):
+            if wd != 0.0:
+                detection_apply(d, codes, bi, bj)
+            if we != 0.0:
+                estimation_apply(e, codes, bi, bj)
+            apply_swap(t, s, bi, bj)
+            current = top
+            if current > best + 1e-9:
+                best = current
+                best_codes[:] = codes
+        late[slot] = current
+    return current, best, late_at, judged

@@ -167,6 +167,17 @@ class Scorer:
     def score(self, runs: list[np.ndarray]) -> float:
         return float(self.score_many([runs])[0])
 
+    def score_on_gaps(self, runs: list[np.ndarray], gaps: list[np.ndarray]) -> float:
+        """Exact weighted score of one design on other gaps, its matrices built directly (cheaper
+        for one design than a new Evaluator; `with_gaps` makes the scorer for many)."""
+        schedules = make_schedules(self.study, runs, self.seed, gaps)
+        layout = make_layout(
+            self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
+        )
+        det, est = self.direct.score(layout, np.concatenate(runs), self.use_det, self.use_est)
+        cb = self.counterbalance(runs) if self.weights.counterbalance else 0.0
+        return float(self.combine(np.array([det]), np.array([est]), cb)[0])
+
     def figures(self, runs: list[np.ndarray]) -> Figures:
         """Every figure of one design (both efficiencies, whatever the weights)."""
         det, est = self._one(runs)

@@ -1,33 +1,30 @@
-"""Efficiency-steered search: CP-SAT keeps every candidate valid, the scorer says which is better.
+"""Efficiency-steered search: many cheap valid moves, CP-SAT where moves cannot reach.
 
 One participant's search (`Search.run`):
 
 1. Start: a pool of diverse valid designs sampled from CP-SAT (random objectives and seeds), and
    shuffles that pass every rule; the best-scoring one becomes the current design.
-2. Each step is one of
-   - swap: score every same-run swap of differently labelled trials at once (exact, fast
-     evaluator; a random sample of them when estimation is weighted) and take the best-gaining
-     swap that passes every rule check;
-   - travel: once no swap gains, record-to-record travel (Dueck 1993): a random valid swap whose
-     score stays within 0.1 % of the best, never undoing a recent one;
-   - neighbourhood: free some positions of one run (a window, a scattered subset, or the trials
-     of two conditions within a stretch), keep everything else fixed, and let CP-SAT choose the
-     freed labels to maximise sum gain[p, c] * x[p, c], where gain[p, c] is the exact change of
-     the score when position p alone takes condition c (the local sensitivity). The answer is
-     valid by construction; it is re-scored exactly and kept only if better;
-   - gaps (jittered timing only): swap two gaps within a run and re-score exactly; the declared
-     gap distribution and the run length stay as they were;
-   - enumerate: a small window's valid completions listed by CP-SAT and all scored exactly.
-   Swap steps run while some valid swap gains; then travel takes most steps and the two CP-SAT
-   neighbourhood kinds the rest, chosen by their success so far. Neighbourhoods grow after
-   failures and shrink when CP-SAT uses its whole work limit. After `kick` failed neighbourhoods
-   in a row, the current design moves to a random valid neighbour of the best one (a
-   neighbourhood solved with a random objective) or, every third time, to an unused start; the
-   best design is kept apart.
-3. Stop: the iteration budget, `stall` steps without gain, the wall-clock budget, or Ctrl-C.
+2. Each round (one `iteration`) makes `moves` moves. A move draws `batch` random swaps of two
+   differently labelled trials of one run, keeps those that leave every rule satisfied (judged
+   locally by the compiled checks of seqsolve.moves, in microseconds), scores them exactly at once
+   (rank-2 updates of the information matrices, seqsolve.efficiency.fast), and takes the best of
+   them under late acceptance (Burke & Bykov 2017, Eur. J. Oper. Res. 258:70-78): the move is made
+   if it scores at least the current design or the design of `history` moves ago, so the search
+   can walk downhill for a while and leave local optima. After the moves:
+   - gaps (jittered timing only): a few swaps of two gaps of a run, each scored exactly on its own
+     timing without building a new evaluator; the best gaining one is kept;
+   - neighbourhood (after a round without gain): CP-SAT re-solves a window, a scattered subset or
+     two conditions' trials of one run with everything else fixed, maximising the exact
+     single-change gains; it reaches designs that single swaps cannot under tight rules;
+   - kick: after `kick` rounds without a new best, the current design moves back to the best one
+     perturbed by a random CP-SAT neighbourhood or, every third time, to an unused start.
+3. Stop: the number of rounds, `stall` rounds without gain, the wall-clock budget, or Ctrl-C.
+   With a budget and no round count, the search runs until the budget (or a stall: no gain for
+   `stall` rounds and for the latter half of the time spent); the result says which stopped it.
 
-Everything depends on the seed and the iteration count only (one CP-SAT worker, deterministic
-work limits); a wall-clock budget that stops the search early is recorded in the result.
+Everything depends on the seed and the round count only (one CP-SAT worker, deterministic work
+limits); a wall-clock budget makes the result depend on the machine, and the result records it.
+The full independent checks (`Judge.ok`) confirm every design the search reports.
 """
 
 from __future__ import annotations
@@ -39,32 +36,54 @@ from dataclasses import dataclass, field
 import numpy as np
 from ortools.sat.python import cp_model
 
+from seqsolve.errors import InternalError
 from seqsolve.model import OrderingModel
+from seqsolve.moves import MoveChecker, compile_moves
 from seqsolve.objective import Figures, Scorer
 from seqsolve.rules.participants_differ import ParticipantsDiffer
 from seqsolve.solve import SolveOptions, _params, check_runs, choose_method, sample_orderings
 from seqsolve.spec import Study
+from seqsolve.tracking import NO_FIR_TRACK, NO_TRACK, detection_track, fir_track, refresh, refresh_fir
 
 #: score gains below this are treated as no gain (scores are fractions near 1)
 TOL = 1e-9
 
+#: rounds when the search runs until its wall-clock budget
+UNLIMITED = 10**12
+
+#: moves per round on the compiled detection-only path, as a multiple of `moves` (each costs about
+#: a sixteenth of a move scored through numpy: measured)
+COMPILED_MOVES = 16
+
+#: late acceptance looks back over this share of the moves a search is expected to make (measured on the
+#: benchmark scenarios: shorter lists stall early on long searches, longer ones wander on short ones)
+HISTORY_SHARE = 150
+HISTORY_RANGE = (20, 20_000)
+
+#: fewest candidates for which estimation's rank-k swap update beats whole scores (measured, N=240)
+EST_SWAPS_BATCHED = 96
+
 
 @dataclass
 class SearchOptions:
-    """How one participant's search runs. None: take the spec's [objective] value."""
+    """How one participant's search runs. None: take the spec's [objective] value.
+
+    iterations counts rounds (see the module docstring); with a budget and no iterations, the
+    search runs until the budget or a stall."""
 
     iterations: int | None = None
     stall: int | None = None
-    budget: float | None = None  # wall-clock seconds per participant, a cap on top of iterations
+    budget: float | None = None  # wall-clock seconds per participant
     pool: int = 32  # diverse valid starts sampled from CP-SAT (fewer under the per-position model)
-    swap_tries: int = 32  # best-gaining swaps tried against the rule checks per swap step
-    swap_sample: int = 1500  # swaps scored per step when estimation (the slower part) is weighted
+    moves: int = 64  # moves per round
+    batch: int = 24  # random swaps drawn per move (judged, the valid ones scored)
+    history: int | None = None  # late acceptance: a move may score below the current design, not below the
+    # design of this many moves ago; None: the expected number of moves / HISTORY_SHARE (set after one round
+    # when the search runs to a wall-clock budget)
+    gap_tries: int = 6  # gap swaps scored per round (jittered timing)
     window: int = 10  # first neighbourhood size (positions)
     window_work: float = 0.1  # CP-SAT deterministic work per neighbourhood
-    listing: int = 400  # completions of a small window scored exactly per enumerate step
-    kick: int = 8  # failed neighbourhoods in a row before moving away from the best design
-    travel: float = 0.001  # record-to-record travel: moves may fall this fraction below the best score
-    travel_share: float = 0.85  # share of steps that travel once no swap gains
+    kick: int = 6  # rounds without a new best before moving back to the best design, perturbed
     solve: SolveOptions = field(default_factory=SolveOptions)
     workers: int = 1  # processes searching participants side by side (generate); same designs for any count
 
@@ -90,7 +109,9 @@ class SearchResult:
     stopped: str  # "iterations", "stall", "budget", "interrupted" or "no search"
     history: list[tuple[int, float, float]]  # (iteration, seconds, best score) at every improvement
     seconds: float
-    accepted: dict[str, int] = field(default_factory=dict)  # improving steps by kind
+    accepted: dict[str, int] = field(default_factory=dict)  # rounds that raised the best, by kind of step
+    moves: int = 0  # moves tried (each judges and scores a batch of swaps)
+    judged: int = 0  # swaps judged by the local rule checks
 
 
 class Judge:
@@ -211,21 +232,37 @@ class Search:
         self.study, self.scorer, self.label, self.seed = study, scorer, label, seed
         self.options, self.progress = options, progress
         obj = study.spec.objective
-        self.iterations = obj.iterations if options.iterations is None else options.iterations
+        self.until_budget = options.iterations is None and options.budget is not None
+        if self.until_budget:
+            self.iterations = UNLIMITED
+        else:
+            self.iterations = obj.iterations if options.iterations is None else options.iterations
         self.stall = obj.stall if options.stall is None else options.stall
         self.rng = np.random.default_rng([seed, 7])
         self.judge = Judge(study, earlier)
         self.windows = WindowSolver(study, earlier, options.window_work, options.solve)
+        self.moves = compile_moves(study.rules, study.facts)
+        self.earlier = earlier
         self.lengths = scorer.lengths
-        self.offsets = np.concatenate([[0], np.cumsum(self.lengths)])
-        self.window = options.window
-        self.small = options.window
-        self.accepted: dict[str, int] = {}
-        self.tries = {"neighbourhood": [1, 2], "enumerate": [1, 2]}  # [gains + 1, tries + 2] per kind
+        self.offsets = np.concatenate([[0], np.cumsum(self.lengths)]).astype(np.int64)
+        self.run_weights = np.asarray(self.lengths, dtype=float) / sum(self.lengths)
         self.jitter = scorer.gaps is not None and any(len(np.unique(np.round(g, 6))) > 1 for g in scorer.gaps)
-        # same-run pairs of trials (global indices)
-        blocks = [np.column_stack(np.triu_indices(n, 1)) + off for n, off in zip(self.lengths, self.offsets) if n > 1]
-        self.pairs = np.concatenate(blocks) if blocks else np.zeros((0, 2), dtype=np.int64)
+        self.window = options.window
+        self.accepted: dict[str, int] = {}
+        self.unused: list[list[np.ndarray]] = []
+        self.kicks = 0
+        self.moves_made = 0
+        # set by run(): the current design (checker holds its labels), the best one, and their scores
+        self.checker: MoveChecker | None = None
+        self.current_score = float("-inf")
+        self.best: list[np.ndarray] = []
+        self.best_score = float("-inf")
+        self.best_scorer = scorer
+        self.late = np.zeros(1)  # late-acceptance list, sized in run()
+        self.track = None  # detection kept current through swaps (tracking.py), where it applies
+        self.fir = None  # and estimation
+        self.track_scorer: Scorer | None = None
+        self.judged = 0  # swaps judged by the local rule checks
 
     # -- the loop -----------------------------------------------------------------------------
 
@@ -236,47 +273,39 @@ class Search:
         scores = self.scorer.score_many(starts)
         order = np.argsort(-scores, kind="stable")
         first = int(order[0])
-        self.current, self.current_score = starts[first], float(scores[first])
         self.unused = [starts[i] for i in order[1:]]
-        self.kicks = 0
-        self.tabu: list[tuple[int, int]] = []
+        self.checker = MoveChecker(self.moves, self.earlier, np.concatenate(starts[first]))
+        self._kernels = self.checker._k
+        self._move_to(starts[first], float(scores[first]))
+        budget = self.options.budget
+        self._size_history(self.iterations * self._moves_per_round() if budget is None else None)
         self.best, self.best_score, self.best_scorer = self.current, self.current_score, self.scorer
         history = [(0, time.perf_counter() - t0, self.best_score)]
-        it, since, failures, stopped = 0, 0, 0, "iterations"
-        swaps_left = True
+        it, since, last_gain, stopped = 0, 0, 0.0, "iterations"
         try:
             while it < self.iterations:
-                if since >= self.stall:
+                elapsed = time.perf_counter() - t0
+                if since >= self.stall and (not self.until_budget or elapsed - last_gain >= elapsed / 2):
                     stopped = "stall"
                     break
-                if self.options.budget is not None and time.perf_counter() - t0 > self.options.budget:
+                if self.options.budget is not None and elapsed > self.options.budget:
                     stopped = "budget"
                     break
                 it += 1
-                if swaps_left:
-                    step, gained = "swap", self._swap_step()
-                    swaps_left = gained
-                elif self.jitter and it % 4 == 0:
-                    step, gained = "gaps", self._gap_step()
-                elif self.rng.random() < self.options.travel_share:
-                    step, gained = "travel", self._travel_step()
-                else:
-                    step = self._pick()
-                    gained = self._window_step() if step == "neighbourhood" else self._enumerate_step()
-                    self.tries[step][0] += gained
-                    self.tries[step][1] += 1
-                    failures = 0 if gained else failures + 1
-                    swaps_left = gained  # a changed design may have new gaining swaps
-                    if failures >= self.options.kick:
-                        self._kick()
-                        failures, swaps_left = 0, True
-                if self.current_score > self.best_score + TOL:
-                    self.best, self.best_score, self.best_scorer = self.current, self.current_score, self.scorer
+                before = self.best_score
+                step = self._round()
+                if it == 1 and budget is not None:  # moves to expect: as many as the first round's pace allows
+                    pace = self._moves_per_round() / max(time.perf_counter() - t0 - elapsed, 1e-6)
+                    left = min(pace * max(budget - elapsed, 0.0), (self.iterations - 1) * self._moves_per_round())
+                    self._size_history(left)
+                if self.best_score > before + TOL:
                     history.append((it, time.perf_counter() - t0, self.best_score))
                     self.accepted[step] = self.accepted.get(step, 0) + 1
-                    since = 0
+                    since, last_gain = 0, time.perf_counter() - t0
                 else:
                     since += 1
+                    if since % self.options.kick == 0:
+                        self._kick()
                 if self.progress:
                     self.progress(
                         Progress(self.label, it, self.iterations, time.perf_counter() - t0, self._best_figures(), step)
@@ -294,12 +323,190 @@ class Search:
             history=history,
             seconds=time.perf_counter() - t0,
             accepted=dict(self.accepted),
+            moves=self.moves_made,
+            judged=self.judged,
         )
 
-    def _pick(self) -> str:
-        """Neighbourhood kind, in proportion to each kind's rate of gain so far."""
-        rates = np.array([g / t for g, t in self.tries.values()])
-        return list(self.tries)[int(self.rng.choice(len(rates), p=rates / rates.sum()))]
+    def _round(self) -> str:
+        """One round: the moves, then gaps, then (after no gain) a CP-SAT neighbourhood. Returns
+        the kind of step that last raised the best score (or 'swap' when none did)."""
+        kind = "swap"
+        before = self.best_score
+        if self.compiled:
+            self._compiled_moves(self.options.moves * COMPILED_MOVES)
+        else:
+            for _ in range(self.options.moves):
+                self._move()
+        self._settle()
+        if self.best_score > before + TOL:
+            kind = "swap"
+        if self.jitter and self._gap_step():
+            kind = "gaps" if self._settle() else kind
+        if self.best_score <= before + TOL:
+            if self._window_step() and self._settle():
+                kind = "neighbourhood"
+        return kind
+
+    def _moves_per_round(self) -> int:
+        return self.options.moves * (COMPILED_MOVES if self.compiled else 1)
+
+    def _size_history(self, expected_moves: float | None) -> None:
+        """The late-acceptance list: the option's length, or a share of the moves expected."""
+        n = self.options.history
+        if n is None:
+            lo, hi = HISTORY_RANGE
+            n = int(min(max((expected_moves or 0) / HISTORY_SHARE, lo), hi))
+        self.late = np.full(max(1, n), self.current_score)
+
+    def _move(self) -> None:
+        """Draw swaps, keep the valid ones, score them, make the best one under late acceptance."""
+        pairs = self._draw_pairs(self.options.batch)
+        if len(pairs):
+            pairs = pairs[self.checker.valid(pairs)]
+        slot = self.moves_made % len(self.late)
+        self.moves_made += 1
+        if len(pairs) == 0:
+            self.late[slot] = self.current_score
+            return
+        self.judged += len(pairs)
+        scores = self._swap_scores(pairs)
+        k = int(np.argmax(scores))
+        score = float(scores[k])
+        if score >= self.current_score - TOL or score >= self.late[slot]:
+            if self.track is not None:
+                self._kernels.detection_apply(self.track, self.checker.codes, *pairs[k])
+            if self.fir is not None:
+                self._kernels.estimation_apply(self.fir, self.checker.codes, *pairs[k])
+            self.checker.apply(*pairs[k])
+            self.current_score = score
+            if score > self.best_score + TOL:
+                self.best, self.best_score, self.best_scorer = self._runs(), score, self.scorer
+        self.late[slot] = self.current_score
+
+    def _compiled_moves(self, n: int) -> None:
+        """n moves in one compiled call (detection only): the same moves as `_move`."""
+        best_codes = np.concatenate(self.best).astype(np.int64)
+        ends = self.offsets[1:].copy()
+        w, r = self.scorer.weights, self.scorer.refs
+        wd = w.detection / max(r.block_detection, 1e-300) if self.track is not None else 0.0
+        we = w.estimation / max(r.random_estimation, 1e-300) if self.fir is not None else 0.0
+        seed = int(self.rng.integers(2**31 - 1))
+        cur, best, at, judged = self._kernels.tracked_moves(
+            self.checker.tables,
+            self.checker.state,
+            self.track or NO_TRACK,
+            self.fir or NO_FIR_TRACK,
+            wd,
+            we,
+            n,
+            self.options.batch,
+            self.late,
+            self.moves_made,
+            self.current_score,
+            self.best_score,
+            best_codes,
+            ends,
+            seed,
+        )
+        self.current_score = cur
+        self.moves_made = int(at)
+        self.judged += int(judged)
+        if best > self.best_score + TOL:
+            self.best, self.best_score, self.best_scorer = self.scorer.split(best_codes), best, self.scorer
+
+    def _settle(self) -> bool:
+        """Exact scores again (no drift from many updates), and the full checks on a new best.
+        True if the best design changed since the last call."""
+        self.current_score = self.scorer.score(self.current)
+        self._track()
+        if getattr(self, "_settled", None) is self.best:
+            return False
+        self.best_score = self.best_scorer.score(self.best)
+        if not self.judge.ok(self.best):  # the local checks promise this never happens
+            raise InternalError(f"participant {self.label}: a searched design fails a full rule check")
+        self._settled = self.best
+        return True
+
+    def _track(self) -> None:
+        """Scores of the current design kept for swaps (tracking.py): rebuilt for a new timing,
+        recomputed from scratch otherwise."""
+        sc = self.scorer
+        if not sc.fixed or sc.weights.counterbalance:
+            self.track = self.fir = None
+            return
+        codes = self.checker.codes
+        if self.track_scorer is not sc:
+            ev = sc.evaluator(self.current)
+            self.track = detection_track(ev, sc.setup, codes) if sc.use_det else None
+            self.fir = fir_track(ev, sc.setup, codes) if sc.use_est else None
+            self.track_scorer = sc
+            return
+        if self.track is not None:
+            refresh(self.track, codes)
+        if self.fir is not None:
+            refresh_fir(self.fir, codes)
+
+    @property
+    def compiled(self) -> bool:
+        """Can every move be made in compiled code (each weighted part tracked)?"""
+        sc = self.scorer
+        return (
+            sc.fixed
+            and not sc.weights.counterbalance
+            and (self.track is not None or not sc.use_det)
+            and (self.fir is not None or not sc.use_est)
+        )
+
+    @property
+    def current(self) -> list[np.ndarray]:
+        return self._runs()
+
+    def _runs(self) -> list[np.ndarray]:
+        return self.scorer.split(self.checker.codes.copy())
+
+    def _move_to(self, runs: list[np.ndarray], score: float, scorer: Scorer | None = None) -> None:
+        """Make runs (valid) the current design."""
+        self.scorer = scorer or self.scorer
+        self.checker.reset(np.concatenate(runs))
+        self._track()
+        self.current_score = score
+        self.late[:] = score
+        if score > self.best_score + TOL:
+            self.best, self.best_score, self.best_scorer = [r.copy() for r in runs], score, self.scorer
+
+    def _draw_pairs(self, n: int) -> np.ndarray:
+        """n random pairs of trials in one run each (runs by length), labels different."""
+        codes = self.checker.codes
+        runs = self.rng.choice(len(self.lengths), size=2 * n, p=self.run_weights)
+        lengths = np.asarray(self.lengths)[runs]
+        i = (self.rng.random(2 * n) * lengths).astype(np.int64)
+        j = (self.rng.random(2 * n) * lengths).astype(np.int64)
+        pairs = np.column_stack([i, j]) + self.offsets[runs][:, None]
+        return pairs[codes[pairs[:, 0]] != codes[pairs[:, 1]]][:n]
+
+    def _swap_scores(self, pairs: np.ndarray) -> np.ndarray:
+        """Exact weighted scores after each swap of the current design."""
+        sc = self.scorer
+        if not sc.fixed or sc.weights.counterbalance:
+            return sc.swap_gains(self.current, pairs)
+        codes = self.checker.codes
+        ev = sc.evaluator(self.current)
+        det = est = np.zeros(len(pairs))
+        if self.track is not None:
+            det = self._kernels.detection_swap_scores(self.track, codes, pairs)
+        elif sc.use_det:
+            det = ev.swap_scores(codes, pairs, True, False)[0]
+        if self.fir is not None:
+            est = self._kernels.estimation_swap_scores(self.fir, codes, pairs)
+        elif sc.use_est:
+            if len(pairs) >= EST_SWAPS_BATCHED:
+                est = ev.swap_scores(codes, pairs, False, True)[1]
+            else:  # few candidates: whole scores are cheaper than the update's set-up (measured)
+                cand = np.repeat(codes[None], len(pairs), axis=0)
+                rows = np.arange(len(pairs))
+                cand[rows, pairs[:, 0]], cand[rows, pairs[:, 1]] = codes[pairs[:, 1]], codes[pairs[:, 0]]
+                est = ev.score_many(cand, False, True)[1]
+        return sc.combine(det, est, 0.0)
 
     def _best_figures(self) -> Figures | None:
         if getattr(self, "_shown", None) is not None and self._shown[0] == self.best_score:
@@ -343,71 +550,34 @@ class Search:
                 current = found[-1]
         return current if self.judge.ok(current) else None
 
-    # -- steps ----------------------------------------------------------------------------------
+    # -- the slower steps -----------------------------------------------------------------------
 
-    def _accept(self, runs: list[np.ndarray], scorer: Scorer | None = None) -> bool:
-        """Make runs current if valid and strictly better (exact score)."""
-        scorer = scorer or self.scorer
-        if not self.judge.ok(runs):
-            return False
-        score = scorer.score(runs)
-        if score > self.current_score + TOL:
-            self.current, self.current_score, self.scorer = runs, score, scorer
-            return True
-        return False
-
-    def _swap_pairs(self, codes: np.ndarray, limit: int | None) -> np.ndarray:
-        """Same-run pairs of differently labelled trials, a random sample of `limit` if more."""
-        pairs = self.pairs[codes[self.pairs[:, 0]] != codes[self.pairs[:, 1]]]
-        if limit is not None and len(pairs) > limit:
-            pairs = pairs[np.sort(self.rng.choice(len(pairs), limit, replace=False))]
-        return pairs
-
-    def _swap_step(self) -> bool:
-        codes = np.concatenate(self.current)
-        pairs = self._swap_pairs(codes, self.options.swap_sample if self.scorer.use_est else None)
-        if len(pairs) == 0:
-            return False
-        gains = self.scorer.swap_gains(self.current, pairs) - self.current_score
-        order = np.argsort(-gains, kind="stable")
-        for idx in order[: self.options.swap_tries]:
-            if gains[idx] <= TOL:
-                break
-            i, j = pairs[idx]
-            cand = codes.copy()
-            cand[i], cand[j] = cand[j], cand[i]
-            if self._accept(self.scorer.split(cand)):
-                return True
-        return False
-
-    def _travel_step(self) -> bool:
-        """Record-to-record travel (Dueck 1993, J. Comput. Phys. 104:86-92): a random valid swap
-        whose score stays within `travel` of the best score (worse than the current one allowed),
-        never undoing one of the last few moves. True if the design moved."""
-        codes = np.concatenate(self.current)
-        pairs = self._swap_pairs(codes, self.options.swap_sample)
-        if len(pairs) == 0:
-            return False
-        scores = self.scorer.swap_gains(self.current, pairs)
-        floor = self.best_score - self.options.travel * abs(self.best_score)
-        eligible = np.flatnonzero(scores >= floor)
-        self.rng.shuffle(eligible)
-        for idx in eligible[: self.options.swap_tries]:
-            i, j = (int(x) for x in pairs[idx])
-            if (i, j) in self.tabu:
+    def _gap_step(self) -> bool:
+        """Swap two gaps of one run: `gap_tries` candidates, each scored exactly on its own timing
+        (matrices built directly; no evaluator per candidate). Keeps the best one if it gains."""
+        gaps = self.scorer.gaps
+        runs = self.current
+        best = None
+        for _ in range(self.options.gap_tries):
+            r = int(self.rng.integers(len(gaps)))
+            if len(gaps[r]) < 2:
                 continue
-            cand = codes.copy()
-            cand[i], cand[j] = cand[j], cand[i]
-            runs = self.scorer.split(cand)
-            if self.judge.ok(runs):
-                self.current, self.current_score = runs, float(self.scorer.score(runs))
-                self.tabu = (self.tabu + [(i, j)])[-8:]
-                return True
-        return False
+            i, j = self.rng.choice(len(gaps[r]), 2, replace=False)
+            if abs(gaps[r][i] - gaps[r][j]) < 1e-9:
+                continue
+            new = [g.copy() for g in gaps]
+            new[r][i], new[r][j] = new[r][j], new[r][i]
+            score = self.scorer.score_on_gaps(runs, new)
+            if score > self.current_score + TOL and (best is None or score > best[0]):
+                best = (score, new)
+        if best is None:
+            return False
+        self._move_to(runs, best[0], self.scorer.with_gaps(best[1]))
+        return True
 
     def _neighbourhood(self, size: int) -> tuple[int, np.ndarray]:
         """A run and some of its positions to free (about `size` of them)."""
-        run = int(self.rng.choice(len(self.lengths), p=np.asarray(self.lengths) / sum(self.lengths)))
+        run = int(self.rng.choice(len(self.lengths), p=self.run_weights))
         n = self.lengths[run]
         w = int(min(size, n))
         kind = self.rng.integers(3)
@@ -419,32 +589,22 @@ class Search:
         # the trials of two conditions within a stretch of three windows
         span = min(n, 3 * w)
         start = int(self.rng.integers(0, n - span + 1))
-        seq = self.current[run][start : start + span]
+        seq = self.checker.codes[self.offsets[run] + start : self.offsets[run] + start + span]
         present = np.unique(seq)
         if len(present) < 2:
             return run, np.arange(start, start + w)
         a, b = self.rng.choice(present, 2, replace=False)
         return run, start + np.flatnonzero((seq == a) | (seq == b))
 
-    def _enumerate_step(self) -> bool:
-        """A small window's valid completions, all scored exactly; the best one if it gains."""
-        run, positions = self._neighbourhood(self.small)
-        seed = int(self.rng.integers(2**31 - 1))
-        found, complete = self.windows.solve(self.current, run, positions, None, seed, listing=self.options.listing)
-        if self._accept_best(found):
-            return True
-        n = max(self.lengths)
-        # all completions seen and none better: look wider next time; cut short: narrower
-        self.small = min(self.small + 1, n) if complete else max(4, self.small - 1)
-        return False
-
     def _window_step(self) -> bool:
+        """CP-SAT over a neighbourhood of the current design, steered by exact single-change gains."""
+        current = self.current
         run, positions = self._neighbourhood(self.window)
-        gains = self.scorer.change_gains(self.current, self.offsets[run] + positions)
+        gains = self.scorer.change_gains(current, self.offsets[run] + positions)
         top = np.abs(gains).max()
         weights = np.rint(gains / top * 10_000).astype(np.int64) if top > 0 else np.zeros(gains.shape, np.int64)
         seed = int(self.rng.integers(2**31 - 1))
-        found, optimal = self.windows.solve(self.current, run, positions, weights, seed)
+        found, optimal = self.windows.solve(current, run, positions, weights, seed)
         if self._accept_best(found):
             return True
         # adapt: larger after a failure the solver settled, smaller when it ran out of work
@@ -453,7 +613,7 @@ class Search:
         return False
 
     def _accept_best(self, designs: list[list[np.ndarray]]) -> bool:
-        """Score candidates exactly in one batch; accept the best valid one if it gains."""
+        """Score candidates exactly in one batch; make the best valid one current if it gains."""
         if not designs:
             return False
         scores = self.scorer.score_many(designs)
@@ -461,53 +621,28 @@ class Search:
             if scores[i] <= self.current_score + TOL:
                 return False
             if self.judge.ok(designs[i]):
-                self.current, self.current_score = designs[i], float(scores[i])
+                self._move_to(designs[i], float(scores[i]))
                 return True
         return False
 
-    def _gap_step(self) -> bool:
-        """Swap two gaps of one run (8 candidates), each scored exactly on its own timing."""
-        gaps = self.scorer.gaps
-        best = None
-        for _ in range(8):
-            r = int(self.rng.integers(len(gaps)))
-            if len(gaps[r]) < 2:
-                continue
-            i, j = self.rng.choice(len(gaps[r]), 2, replace=False)
-            if abs(gaps[r][i] - gaps[r][j]) < 1e-9:
-                continue
-            new = [g.copy() for g in gaps]
-            new[r][i], new[r][j] = new[r][j], new[r][i]
-            scorer = self.scorer.with_gaps(new)
-            score = scorer.score(self.current)
-            if score > self.current_score + TOL and (best is None or score > best[0]):
-                best = (score, scorer)
-        if best is None:
-            return False
-        self.current_score, self.scorer = best
-        return True
-
     def _kick(self) -> None:
-        """Leave a local optimum: every third time restart from the next unused starting design
-        (best first), otherwise move to a random valid neighbour of the best one (score may drop)."""
+        """Leave a region that stopped giving: every third time restart from the next unused starting
+        design (best first), otherwise from the best design with a random CP-SAT neighbourhood."""
         self.kicks += 1
         if self.kicks % 3 == 0 and self.unused:
-            self.current = self.unused.pop(0)
-            self.current_score = self.scorer.score(self.current)
+            runs = self.unused.pop(0)
+            self._move_to(runs, self.scorer.score(runs))
             self.window = self.options.window
             return
+        base, scorer = self.best, self.best_scorer
         run = int(self.rng.integers(len(self.lengths)))
         n = self.lengths[run]
         w = int(min(n, max(2 * self.window, 8)))
         start = int(self.rng.integers(0, n - w + 1))
-        k = self.study.facts.n_conditions
-        weights = self.rng.integers(-100, 101, size=(w, k))
-        found, _ = self.windows.solve(
-            self.best, run, np.arange(start, start + w), weights, int(self.rng.integers(2**31 - 1))
-        )
-        if found and self.judge.ok(found[-1]):
-            self.current, self.scorer = found[-1], self.best_scorer
-            self.current_score = self.scorer.score(found[-1])
+        weights = self.rng.integers(-100, 101, size=(w, self.study.facts.n_conditions))
+        found, _ = self.windows.solve(base, run, np.arange(start, start + w), weights, int(self.rng.integers(2**31 - 1)))
+        runs = found[-1] if found and self.judge.ok(found[-1]) else base
+        self._move_to(runs, scorer.score(runs), scorer)
         self.window = self.options.window
 
 

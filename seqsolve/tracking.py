@@ -1,0 +1,101 @@
+"""Scores the search keeps current through its swaps (compiled in seqsolve.move_kernels).
+
+For a fixed timing each trial has one filtered regressor r_t (prewhitened, nuisance removed; the
+Evaluator's), so a design's information is X'X = Z'(R'R)Z with Z its one-hot labels. The search keeps
+R'R (trials x trials), X'X and X'R; a swap then costs O(p^2) to score and O(N p) to make, instead of
+the Evaluator's set-up per call. Applies to the A criterion with one regressor per condition and one
+duration for all conditions (otherwise the search scores through the Evaluator).
+
+Estimation (FIR with bins of one TR) works the same way in volume space: each (trial, lag) is a
+filtered 0/1 column, whose products are entries of Omega = W'(I - QQ')W; the search keeps X'X and
+(0/1 design)' Omega, and a swap moves one volume per lag between two condition blocks.
+"""
+
+from __future__ import annotations
+
+from collections import namedtuple
+
+import numpy as np
+
+from seqsolve.efficiency.fast import Evaluator
+from seqsolve.efficiency.setup import AnalysisSetup
+
+#: more trials than this and R'R (8 bytes per pair) is no longer small: the Evaluator scores instead
+MAX_TRIALS = 4000
+
+Track = namedtuple("Track", ["gram", "col", "contrast", "m", "s"])
+FirTrack = namedtuple("FirTrack", ["omega", "scan", "col", "contrast", "m", "tv"])
+
+#: what the compiled loop takes for a part it does not score
+NO_TRACK = Track(np.zeros((0, 0)), np.zeros(0, np.int64), np.zeros((0, 0)), np.zeros((0, 0)), np.zeros((0, 0)))
+NO_FIR_TRACK = FirTrack(
+    np.zeros((0, 0)), np.zeros((0, 0), np.int64), np.zeros(0, np.int64), np.zeros((0, 0)), np.zeros((0, 0)),
+    np.zeros((0, 0)),
+)
+
+
+def detection_track(evaluator: Evaluator, setup: AnalysisSetup, codes: np.ndarray) -> Track | None:
+    """The tracked detection state of a design (runs concatenated), or None where it does not apply."""
+    part = evaluator.det
+    n = part.regs[0].shape[1]
+    if len(part.regs) != 1 or part.nb != 1 or setup.criterion != "A" or n > MAX_TRIALS:
+        return None
+    r = part.regs[0][:, :, 0]
+    p = part.p
+    track = Track(
+        gram=np.ascontiguousarray(r.T @ r),
+        col=part.col.astype(np.int64),
+        contrast=np.ascontiguousarray(setup.detection_contrast(), dtype=float),
+        m=np.zeros((p, p)),
+        s=np.zeros((p, n)),
+    )
+    refresh(track, codes)
+    return track
+
+
+def refresh(track: Track, codes: np.ndarray) -> None:
+    """Recompute X'R and X'X of a design from scratch (no drift from many updates)."""
+    cols = track.col[codes]
+    z = np.zeros((len(codes), track.m.shape[0]))
+    inside = np.flatnonzero(cols >= 0)
+    z[inside, cols[inside]] = 1.0
+    track.s[:] = z.T @ track.gram
+    track.m[:] = track.s @ z
+
+
+def fir_track(evaluator: Evaluator, setup: AnalysisSetup, codes: np.ndarray) -> FirTrack | None:
+    """The tracked estimation state of a design, or None where it does not apply (FIR bins wider
+    than one TR, a circular evaluator, the D criterion, very many volumes)."""
+    if setup.fir_step > setup.tr + 1e-9 or evaluator.circular or setup.criterion != "A":
+        return None
+    if evaluator.layout.n_scans > MAX_TRIALS:
+        return None
+    part = evaluator.est
+    track = FirTrack(
+        omega=np.ascontiguousarray(evaluator.omega),
+        scan=np.ascontiguousarray(evaluator.fir_scan, dtype=np.int64),
+        col=part.col.astype(np.int64),
+        contrast=np.ascontiguousarray(setup.estimation_contrast(), dtype=float),
+        m=np.zeros((part.p, part.p)),
+        tv=np.zeros((part.p, evaluator.layout.n_scans)),
+    )
+    refresh_fir(track, codes)
+    return track
+
+
+def refresh_fir(track: FirTrack, codes: np.ndarray) -> None:
+    """Recompute X'X and (0/1 design)' Omega of a design from scratch."""
+    lags = track.scan.shape[1]
+    z = np.zeros((track.m.shape[0], track.omega.shape[0]))  # (columns, volumes): the 0/1 design, transposed
+    cols = track.col[codes]
+    for lag in range(lags):
+        keep = (cols >= 0) & (track.scan[:, lag] >= 0)
+        np.add.at(z, (cols[keep] + lag, track.scan[keep, lag]), 1.0)
+    track.tv[:] = z @ track.omega
+    track.m[:] = track.tv @ z.T
+
+
+__all__ = [
+    "MAX_TRIALS", "NO_FIR_TRACK", "NO_TRACK", "FirTrack", "Track", "detection_track", "fir_track", "refresh",
+    "refresh_fir",
+]

@@ -80,7 +80,8 @@ class _StepDisplay:
                 f"estimation {f.estimation_vs_random:.2f}x random)"
             )
         )
-        line = f"  {p.participant}: step {p.iteration}/{p.iterations}  {p.elapsed:5.1f} s  {parts}"
+        of = "" if p.iterations >= 10**12 else f"/{p.iterations}"  # a search to a budget has no round count
+        line = f"  {p.participant}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
         if self.tty:
             typer.echo("\r" + line.ljust(100)[:100], err=True, nl=False)
         else:
@@ -98,10 +99,16 @@ def generate(
     seed: Annotated[int | None, typer.Option(help="Master seed; overrides study.seed.")] = None,
     force: Annotated[bool, typer.Option(help="Replace an existing output folder.")] = False,
     iterations: Annotated[
-        int | None, typer.Option(min=0, help="Search steps per participant (overrides objective.iterations; 0: none).")
+        int | None,
+        typer.Option(min=0, help="Search rounds per participant (overrides objective.iterations; 0: none)."),
     ] = None,
     budget: Annotated[
-        float | None, typer.Option(min=0, help="Wall-clock cap in seconds per participant's search.")
+        float | None,
+        typer.Option(
+            min=0,
+            help="Seconds of search per participant. Alone: search until it runs out (or the search stalls); "
+            "with --iterations: whichever ends first. Results then depend on machine speed.",
+        ),
     ] = None,
     front: Annotated[int, typer.Option(min=0, help="Also write front.tsv: the trade-off at this many weightings.")] = 0,
     workers: Annotated[
@@ -133,9 +140,15 @@ def generate(
     with _long_command(display):
         study = load_study(spec, seed=seed)
         steps = study.spec.objective.iterations if iterations is None else iterations
+        if budget is not None and iterations is None:
+            plan = f"search of {budget:g} s per participant"
+        elif steps:
+            plan = f"search of {steps} rounds per participant" + (f" (at most {budget:g} s)" if budget else "")
+        else:
+            plan = "no search"
         typer.echo(
             f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), "
-            f"{len(study.rules)} rule(s); " + (f"search of {steps} steps per participant" if steps else "no search"),
+            f"{len(study.rules)} rule(s); {plan}",
             err=True,
         )
         solve = SolveOptions(time_limit=time_limit, method=method)
@@ -144,7 +157,7 @@ def generate(
             out,
             force=force,
             options=solve,
-            progress=None if steps else _progress(started),
+            progress=None if (steps or budget is not None) else _progress(started),
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
@@ -171,7 +184,7 @@ def _table(head: list[str], rows: list[list[str]]) -> str:
 
 
 def _designs_table(designs) -> str:
-    head = ["participant", "score", "detection vs block", "estimation vs random", "counterbalance", "steps", "stopped"]
+    head = ["participant", "score", "detection vs block", "estimation vs random", "counterbalance", "rounds", "stopped"]
     rows = []
     for d in designs:
         f, info = d.figures, d.search or {}

@@ -18,7 +18,7 @@ from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
-from seqsolve.search import Judge, Progress, Search, SearchOptions, SearchResult
+from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
 from seqsolve.solve import (
     ParticipantOrdering,
     SolveOptions,
@@ -92,7 +92,7 @@ def design_study(
     options = options or SolveOptions()
     search = search or SearchOptions(solve=options)
     iterations = study.spec.objective.iterations if search.iterations is None else search.iterations
-    if iterations == 0:
+    if iterations == 0 and (search.budget is None or search.iterations is not None):
         found: list[ParticipantOrdering] = generate_orderings(study, options, progress)
         designs = StudyDesigns(
             Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
@@ -163,7 +163,14 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
             out.append(_unsearched(*args))  # only after a Ctrl-C
             continue
         schedules = make_schedules(study, result.runs, job.seed, result.gaps)
-        info = {"iterations": result.iterations, "stopped": result.stopped, "improving_steps": result.accepted}
+        info = {
+            "iterations": result.iterations,
+            "stopped": result.stopped,
+            "stopped_by": STOPPED_BY[result.stopped],
+            "moves": result.moves,
+            "swaps_judged": result.judged,
+            "improving_steps": result.accepted,
+        }
         took = seconds.get(job.index, 0.0) + time.perf_counter() - t0
         out.append(Design(job.label, job.seed, method, result.runs, schedules, took, result.figures, info))
     if progress:

@@ -53,7 +53,7 @@ UNLIMITED = 10**12
 
 #: moves per round on the compiled detection-only path, as a multiple of `moves` (each costs about
 #: a sixteenth of a move scored through numpy: measured)
-COMPILED_MOVES = 16
+COMPILED_MOVES = 4
 
 #: late acceptance looks back over this share of the moves a search is expected to make (measured on the
 #: benchmark scenarios: shorter lists stall early on long searches, longer ones wander on short ones)
@@ -86,6 +86,16 @@ class SearchOptions:
     kick: int = 6  # rounds without a new best before moving back to the best design, perturbed
     solve: SolveOptions = field(default_factory=SolveOptions)
     workers: int = 1  # processes searching participants side by side (generate); same designs for any count
+
+
+#: what ended a participant's search, as the manifest says it
+STOPPED_BY = {
+    "iterations": "the number of rounds (objective.iterations or --iterations)",
+    "stall": "the stall rule: no gain for objective.stall rounds (and, on a budget, for the latter half of the time)",
+    "budget": "the wall-clock budget (--budget); the result depends on machine speed",
+    "interrupted": "an interruption (Ctrl-C or a termination signal); the best design found so far was kept",
+    "no search": "nothing: iterations = 0 asks for the first valid ordering",
+}
 
 
 @dataclass
@@ -646,4 +656,4 @@ class Search:
         self.window = self.options.window
 
 
-__all__ = ["Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver", "shuffled"]
+__all__ = ["STOPPED_BY", "Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver", "shuffled"]

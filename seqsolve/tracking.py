@@ -4,7 +4,7 @@ For a fixed timing each trial has one filtered regressor r_t (prewhitened, nuisa
 Evaluator's), so a design's information is X'X = Z'(R'R)Z with Z its one-hot labels. The search keeps
 R'R (trials x trials), X'X and X'R; a swap then costs O(p^2) to score and O(N p) to make, instead of
 the Evaluator's set-up per call. Applies to the A criterion with one regressor per condition and one
-duration for all conditions (otherwise the search scores through the Evaluator).
+duration for all modelled conditions (otherwise the search scores through the Evaluator).
 
 Estimation (FIR with bins of one TR) works the same way in volume space: each (trial, lag) is a
 filtered 0/1 column, whose products are entries of Omega = W'(I - QQ')W; the search keeps X'X and
@@ -38,9 +38,10 @@ def detection_track(evaluator: Evaluator, setup: AnalysisSetup, codes: np.ndarra
     """The tracked detection state of a design (runs concatenated), or None where it does not apply."""
     part = evaluator.det
     n = part.regs[0].shape[1]
-    if len(part.regs) != 1 or part.nb != 1 or setup.criterion != "A" or n > MAX_TRIALS:
+    groups = {int(part.group[c]) for c in part.modelled}  # the baseline's own duration does not matter
+    if len(groups) != 1 or part.nb != 1 or setup.criterion != "A" or n > MAX_TRIALS:
         return None
-    r = part.regs[0][:, :, 0]
+    r = part.regs[groups.pop()][:, :, 0]
     p = part.p
     track = Track(
         gram=np.ascontiguousarray(r.T @ r),

@@ -28,7 +28,7 @@ CASES = {
 
 def _setting(name):
     kw = dict(CASES[name])
-    study = make_study([9, 8, 7, 6], **kw)
+    study = make_study([9, 8, 7, 6], durations=[1.0, 1.0, 1.0, 0.5] if "baseline" in kw else None, **kw)
     runs = sample_orderings(study, 5, 1)[0]
     refs = References(1.0, 1, 1.0)
     scorer = Scorer(study, Weights.of(1.0, 1.0), refs, 5)

@@ -315,7 +315,9 @@ def random_valid(
 
 @dataclass
 class GeneticSettings:
-    """Tuning of `genetic` (chosen by measurement on benchmarks/bench_search.py's scenarios)."""
+    """Tuning of `genetic`. Defaults from a short tuning at 10 s on benchmarks/bench_search.py's
+    scenarios (one seed each, on a shared machine, so differences of about 1 % are noise): larger
+    populations, more repair and more crossover did not help there."""
 
     population: int = 64
     elite: int = 2  # best designs copied unchanged into the next generation

@@ -488,12 +488,95 @@ def estimation_apply(e, codes, i, j):
                 e.tv[cb + lag, v] -= w
 
 
+@njit(cache=True, fastmath=_FAST)
+def _fir_sensitivity(e, chol, h):
+    """h = M^-1 C'C M^-1 of the current FIR information (the gradient of trace(C M^-1 C') is -h);
+    returns trace(C M^-1 C'), or -1 when M counts as singular."""
+    p = e.m.shape[0]
+    if a_efficiency(e.m, e.contrast, chol) == 0.0:
+        return -1.0
+    # g = M^-1 C' column by column, from the factor a_efficiency left in chol
+    q = e.contrast.shape[0]
+    g = np.zeros((p, q))
+    y = np.zeros(p)
+    trace = 0.0
+    for k in range(q):
+        for r in range(p):
+            acc = e.contrast[k, r]
+            for c in range(r):
+                acc -= chol[r, c] * y[c]
+            y[r] = acc / chol[r, r]
+            trace += y[r] * y[r]
+        for r in range(p - 1, -1, -1):
+            acc = y[r]
+            for c in range(r + 1, p):
+                acc -= chol[c, r] * g[c, k]
+            g[r, k] = acc / chol[r, r]
+    for x in range(p):
+        for z in range(p):
+            acc = 0.0
+            for k in range(q):
+                acc += g[x, k] * g[z, k]
+            h[x, z] = acc
+    return trace
+
+
+@njit(cache=True, fastmath=_FAST)
+def _fir_first_order(e, codes, i, j, h):
+    """First-order change of trace(C M^-1 C') for the swap of i and j: -<h, change of M>."""
+    ca = e.col[codes[i]]
+    cb = e.col[codes[j]]
+    if ca < 0 and cb < 0:
+        return 0.0
+    p = e.m.shape[0]
+    lags = e.scan.shape[1]
+    out = 0.0
+    for lag in range(lags):
+        vi, vj = e.scan[i, lag], e.scan[j, lag]
+        for x in range(p):
+            w = 0.0
+            if vj >= 0:
+                w += e.tv[x, vj]
+            if vi >= 0:
+                w -= e.tv[x, vi]
+            hx = 0.0
+            if ca >= 0:
+                hx += h[ca + lag, x]
+            if cb >= 0:
+                hx -= h[cb + lag, x]
+            out += 2.0 * hx * w
+        for m in range(lags):
+            ui, uj = e.scan[i, m], e.scan[j, m]
+            delta = 0.0
+            if vj >= 0 and uj >= 0:
+                delta += e.omega[vj, uj]
+            if vj >= 0 and ui >= 0:
+                delta -= e.omega[vj, ui]
+            if vi >= 0 and uj >= 0:
+                delta -= e.omega[vi, uj]
+            if vi >= 0 and ui >= 0:
+                delta += e.omega[vi, ui]
+            hu = 0.0
+            if ca >= 0:
+                hu += h[ca + lag, ca + m]
+            if cb >= 0:
+                hu += h[cb + lag, cb + m]
+            if ca >= 0 and cb >= 0:
+                hu -= h[ca + lag, cb + m] + h[cb + lag, ca + m]
+            out += delta * hu
+    return -out
+
+
 @njit(cache=True)
-def tracked_moves(t, s, d, e, wd, we, n_moves, batch, late, late_at, current, best, best_codes, run_ends, seed):
+def tracked_moves(
+    t, s, d, e, wd, we, n_moves, batch, screen, late, late_at, current, best, best_codes, run_ends, seed
+):
     """`n_moves` moves of the search, all compiled (see search.Search._move): each draws `batch`
     swaps, judges them locally, scores the valid ones (wd x detection + we x estimation; a weight
-    of 0 skips its part) and makes the best one under late acceptance. Returns (current score,
-    best score, late-acceptance position, swaps judged); best_codes receives each new best design."""
+    of 0 skips its part) and makes the best one under late acceptance. With screen > 0, estimation
+    is first estimated to first order (gradient of the trace) and only the `screen` most promising
+    candidates are scored exactly; moves are always decided on exact scores. Returns (current
+    score, best score, late-acceptance position, swaps judged); best_codes receives each new best."""
     np.random.seed(seed)
     codes = s.codes
     pd = d.m.shape[0]
@@ -502,12 +585,20 @@ def tracked_moves(t, s, d, e, wd, we, n_moves, batch, late, late_at, current, be
     chol_d = np.zeros((pd, pd))
     work_e = np.empty((pe, pe))
     chol_e = np.zeros((pe, pe))
+    h = np.zeros((pe, pe))
+    cand_i = np.empty(batch, dtype=np.int64)
+    cand_j = np.empty(batch, dtype=np.int64)
+    cand_det = np.empty(batch)
+    cand_guess = np.empty(batch)
     total = run_ends[-1]
     judged = 0
+    trace = -1.0
+    fresh = False  # is h that of the current design?
     for _ in range(n_moves):
-        top = -1.0
-        bi = -1
-        bj = -1
+        if we != 0.0 and screen > 0 and not fresh:
+            trace = _fir_sensitivity(e, chol_e, h)
+            fresh = True
+        n = 0
         for _b in range(batch):
             i = np.random.randint(0, total)
             r = np.searchsorted(run_ends, i, side="right")
@@ -520,14 +611,31 @@ def tracked_moves(t, s, d, e, wd, we, n_moves, batch, late, late_at, current, be
             sc = 0.0
             if wd != 0.0:
                 _swapped_information(d, codes, i, j, work_d)
-                sc += wd * a_efficiency(work_d, d.contrast, chol_d)
+                sc = wd * a_efficiency(work_d, d.contrast, chol_d)
+            cand_i[n] = i
+            cand_j[n] = j
+            cand_det[n] = sc
+            guess = sc
+            if we != 0.0 and screen > 0 and trace > 0:
+                new = trace + _fir_first_order(e, codes, i, j, h)
+                guess += we / new if new > 0 else 0.0
+            cand_guess[n] = guess
+            n += 1
+        top = -1.0
+        bi = -1
+        bj = -1
+        exact = n if (we == 0.0 or screen <= 0 or trace <= 0) else min(n, screen)
+        order = np.argsort(-cand_guess[:n])
+        for k in range(exact):
+            c = order[k]
+            sc = cand_det[c]
             if we != 0.0:
-                _fir_swapped_information(e, codes, i, j, work_e)
+                _fir_swapped_information(e, codes, cand_i[c], cand_j[c], work_e)
                 sc += we * a_efficiency(work_e, e.contrast, chol_e)
             if sc > top:
                 top = sc
-                bi = i
-                bj = j
+                bi = cand_i[c]
+                bj = cand_j[c]
         slot = late_at % late.shape[0]
         late_at += 1
         if bi >= 0 and (top >= current - 1e-12 or top >= late[slot]):
@@ -536,6 +644,7 @@ def tracked_moves(t, s, d, e, wd, we, n_moves, batch, late, late_at, current, be
             if we != 0.0:
                 estimation_apply(e, codes, bi, bj)
             apply_swap(t, s, bi, bj)
+            fresh = False
             current = top
             if current > best + 1e-9:
                 best = current

@@ -77,6 +77,7 @@ class SearchOptions:
     pool: int = 32  # diverse valid starts sampled from CP-SAT (fewer under the per-position model)
     moves: int = 64  # moves per round
     batch: int = 24  # random swaps drawn per move (judged, the valid ones scored)
+    screen: int = 4  # compiled moves: estimation scored exactly for this many, the best by its gradient (0: all)
     history: int | None = None  # late acceptance: a move may score below the current design, not below the
     # design of this many moves ago; None: the expected number of moves / HISTORY_SHARE (set after one round
     # when the search runs to a wall-clock budget)
@@ -410,6 +411,7 @@ class Search:
             we,
             n,
             self.options.batch,
+            self.options.screen,
             self.late,
             self.moves_made,
             self.current_score,

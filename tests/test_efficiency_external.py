@@ -49,6 +49,18 @@ def test_double_gamma_landmarks():
     assert h.sum() * 0.1 == pytest.approx(1.0, abs=2e-3)  # the 32 s kernel cuts a sliver of the tail
 
 
+def test_gamma_density_equals_scipy_stats():
+    # hrf.gamma_pdf writes out the density so that scipy.stats need not be imported; scipy's own
+    # scipy.stats.gamma.pdf is the judge (shape 6 and 16, unit scale: the canonical HRF's two parts)
+    from scipy import stats
+
+    from seqsolve.efficiency.hrf import gamma_pdf
+
+    t = np.concatenate([[-1.0, 0.0, 1e-12], np.arange(0.05, 60.0, 0.05)])
+    for shape in (1.0, 6.0, 16.0):
+        assert np.allclose(gamma_pdf(t, shape), stats.gamma.pdf(t, shape), rtol=1e-12, atol=1e-300)
+
+
 def test_matches_nilearn_spm_hrf_up_to_its_rounded_ratio():
     from nilearn.glm.first_level import spm_hrf
 

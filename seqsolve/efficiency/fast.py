@@ -18,7 +18,6 @@ from scipy import sparse
 from scipy.linalg import solve_triangular
 from threadpoolctl import ThreadpoolController
 
-from seqsolve.efficiency import kernels
 from seqsolve.efficiency.grid import Layout, fir_bins
 from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix
@@ -33,6 +32,14 @@ SCHUR_MIN = 64
 SCHUR_MIN_COLUMNS = 12
 
 _THREADPOOLS: ThreadpoolController | None = None
+
+
+def _kernels():
+    """kernels.py, imported when a kernel is first needed: importing numba and loading the cached
+    machine code costs about a second, which `import seqsolve` and the numpy paths should not pay."""
+    from seqsolve.efficiency import kernels
+
+    return kernels
 
 
 def one_blas_thread():
@@ -191,8 +198,8 @@ class Evaluator:
             self.omega = self._omega()
         self.c_det = setup.detection_contrast()
         self.c_est = setup.estimation_contrast()
-        self.k_det = kernels.prepare_contrast(self.c_det)
-        self.k_est = kernels.prepare_contrast(self.c_est)
+        self.k_det = _kernels().prepare_contrast(self.c_det)
+        self.k_est = _kernels().prepare_contrast(self.c_est)
         self.band = self._band() if compiled else None
 
     # -- building the filtered trial regressors ------------------------------------------------
@@ -248,7 +255,7 @@ class Evaluator:
         return _Part(regs, group, self.setup.modelled, self.k)
 
     def _band(self) -> tuple[np.ndarray, ...]:
-        """What kernels.band_scores needs: the products of trials whose whitened responses overlap,
+        """What _kernels().band_scores needs: the products of trials whose whitened responses overlap,
         by diagonal (trial i with trial i + d) and, for pairs far apart in a circular run, as a
         list; and the responses' products with Q."""
         nb = self.det.nb
@@ -326,7 +333,7 @@ class Evaluator:
         return raw
 
     def _fir_bits(self, diag, off, qw) -> tuple | None:
-        """What kernels.fir_bit_scores needs, or None where it does not apply: two trials at one
+        """What _kernels().fir_bit_scores needs, or None where it does not apply: two trials at one
         volume and lag (their columns would count 2 there), or too many distinct filter weights."""
         if not self.fir_unique:
             return None
@@ -353,7 +360,7 @@ class Evaluator:
     def _omega(self) -> np.ndarray:
         """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries.
 
-        Also keeps what kernels.fir_scores needs: the volumes' (trial, lag) hits, the tridiagonal
+        Also keeps what _kernels().fir_scores needs: the volumes' (trial, lag) hits, the tridiagonal
         W'W and W'Q (None where the compiled path does not apply)."""
         eye = np.eye(self.layout.n_scans)
         w = whiten(eye, self.setup.ar1, self.layout.run_lengths)
@@ -394,7 +401,7 @@ class Evaluator:
         det = est = np.full(codes.shape[0], np.nan)
         with one_blas_thread():
             if detection and self.band is not None:
-                det = kernels.band_scores(
+                det = _kernels().band_scores(
                     codes64,
                     self.det.col.astype(np.int64),
                     self.det.group.astype(np.int64),
@@ -408,7 +415,7 @@ class Evaluator:
                 md = np.swapaxes(xd, 1, 2) @ xd
                 det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
             if estimation and self.fir_bits is not None:
-                est = kernels.fir_bit_scores(
+                est = _kernels().fir_bit_scores(
                     codes64,
                     self.est.col.astype(np.int64),
                     *self.fir_bits,
@@ -417,7 +424,7 @@ class Evaluator:
                 )
             elif estimation and self.fir_kernel is not None:
                 ptr, trial, lag, diag, off, qw = self.fir_kernel
-                est = kernels.fir_scores(
+                est = _kernels().fir_scores(
                     codes64,
                     self.est.col.astype(np.int64),
                     ptr,
@@ -525,7 +532,7 @@ class Evaluator:
         """Scores of candidates given as column-block updates, in chunks that stay in cache.
 
         moves: the same candidates as (gaining condition, losing condition, trial, trial taken
-        away or -1), for the rank-2 path of kernels.rank2_scores."""
+        away or -1), for the rank-2 path of _kernels().rank2_scores."""
         n_cand = len(terms[0][0])
         chunk = max(1, 2_000_000 // (part.p * part.p))
         x = part.design(codes[None])[0]
@@ -554,7 +561,7 @@ class Evaluator:
         return out
 
     def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
-        """kernels.rank2_scores; None when the current design is singular."""
+        """_kernels().rank2_scores; None when the current design is singular."""
         if _regular_cholesky(m) is None:
             return None
         minv = np.linalg.inv(m)
@@ -563,7 +570,7 @@ class Evaluator:
         h = cm.T @ cm
         x1 = np.ascontiguousarray(xp[0, :, :, 0])
         gains, loses, t1, t2 = (np.ascontiguousarray(v, dtype=np.int64) for v in moves)
-        return kernels.rank2_scores(
+        return _kernels().rank2_scores(
             minv,
             h,
             float(np.trace(cm @ contrast.T)),
@@ -589,9 +596,9 @@ class Evaluator:
         """Compiled scores of candidates given as (condition, trial, sign) terms.
 
         Candidates that touch the same condition blocks are scored together through the Cholesky
-        factor of the untouched blocks (kernels.schur_scores) when there are enough of them to pay
+        factor of the untouched blocks (_kernels().schur_scores) when there are enough of them to pay
         for its set-up; the rest, and designs whose untouched part is singular, one by one through
-        a whole factorisation (kernels.update_scores)."""
+        a whole factorisation (_kernels().update_scores)."""
         conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
         trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
         signs = np.array([sg for _, _, sg in terms], dtype=float)
@@ -604,10 +611,10 @@ class Evaluator:
         lo = np.where(cols >= 0, cols, part.p).min(axis=1)
         hi = cols.max(axis=1)
         key = lo * (part.p + 1) + np.maximum(hi, 0)
-        prepared = kernels.prepare_contrast(contrast)
+        prepared = _kernels().prepare_contrast(contrast)
 
         def whole(sel: np.ndarray) -> np.ndarray:  # one whole factorisation per candidate
-            return kernels.update_scores(
+            return _kernels().update_scores(
                 m,
                 xp,
                 *source,
@@ -637,7 +644,7 @@ class Evaluator:
         return out
 
     def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:
-        """kernels.schur_scores for candidates that touch the blocks starting at columns `starts`;
+        """_kernels().schur_scores for candidates that touch the blocks starting at columns `starts`;
         None when the untouched part of the current design is singular."""
         nb = part.nb
         s_idx = np.concatenate([np.arange(c, c + nb) for c in starts])
@@ -667,7 +674,7 @@ class Evaluator:
         for b, c in enumerate(starts):
             block[c] = b
         blocks = block[np.where(part.col[conds] >= 0, part.col[conds], part.p)]
-        return kernels.schur_scores(
+        return _kernels().schur_scores(
             np.ascontiguousarray(m[np.ix_(s_idx, s_idx)]),
             np.ascontiguousarray(a0),
             np.ascontiguousarray(h0[:, order]),

@@ -33,7 +33,21 @@ _WHERE = {
     "trade_off_front": "seqsolve.tradeoff",
 }
 
-__all__ = sorted(_WHERE)
+__all__ = [
+    "SearchOptions",
+    "SeqsolveError",
+    "SolveOptions",
+    "audit",
+    "audit_orderings",
+    "check_study",
+    "compare",
+    "design_study",
+    "explain",
+    "generate",
+    "generate_orderings",
+    "load_study",
+    "trade_off_front",
+]
 
 if TYPE_CHECKING:  # what type checkers and editors see; nothing is imported at run time
     from seqsolve.audit import audit, audit_orderings

@@ -47,7 +47,9 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true")
     args = ap.parse_args()
     repeats = 3 if args.quick else 7
-    print(f"import time, median of {repeats} fresh interpreters each (lower is better); x numpy = this / import numpy\n")
+    print(
+        f"import time, median of {repeats} fresh interpreters each (lower is better); x numpy = this / import numpy\n"
+    )
     head = f"{'what':<32} | {'seconds':>8} | {'x numpy':>8} | {'target':>8} | {'met':>4}"
     print(head)
     print("-" * len(head))

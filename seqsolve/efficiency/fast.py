@@ -18,9 +18,10 @@ from scipy import sparse
 from scipy.linalg import solve_triangular
 from threadpoolctl import ThreadpoolController
 
-from seqsolve.efficiency.grid import Layout, fir_bins
-from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
+from seqsolve.efficiency.grid import Layout
+from seqsolve.efficiency.nuisance import run_bases, whiten, whitening_matrix
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix
+from seqsolve.efficiency.regressors import fir_hits, fir_regressors, trial_responses
 from seqsolve.efficiency.setup import AnalysisSetup
 
 #: information matrices with a smaller reciprocal condition number count as singular
@@ -85,9 +86,9 @@ def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") 
 
 
 def nuisance_basis(setup: AnalysisSetup, run_lengths: list[int]) -> np.ndarray:
-    """Orthonormal basis Q of the prewhitened nuisance space (intercepts, drifts) of these runs."""
-    nuis = block_nuisance(run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
-    return residual_basis(whiten(nuis, setup.ar1, run_lengths))
+    """Orthonormal basis Q (n_scans, rank) of the prewhitened nuisance space (intercepts, drifts)
+    of these runs, in run blocks (nuisance.run_bases)."""
+    return run_bases(run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree, setup.ar1)[0]
 
 
 class DirectScorer:
@@ -137,33 +138,91 @@ class Neighbours:
 
 
 class _Part:
-    """One analysis (detection or estimation): filtered trial regressors per duration group."""
+    """One analysis (detection or estimation): each trial's whitened, unfiltered regressors per
+    duration group, sparse, and the nuisance basis Q they are filtered against. The filtered
+    regressors P = (I - QQ')WR are dense volumes x trials (memory growing with N^2), so they are
+    never formed: X = P Z is built as (I - QQ')(WR Z), and X'P as X'WR (X is already filtered)."""
 
-    def __init__(self, regs: list[np.ndarray], group: np.ndarray, modelled: tuple[int, ...], n_conditions: int):
-        self.regs = regs  # per group: (n_scans, n_trials, n_basis)
+    def __init__(
+        self,
+        whitened: list[sparse.csc_matrix],
+        q: np.ndarray,
+        group: np.ndarray,
+        modelled: tuple[int, ...],
+        n_conditions: int,
+        nb: int,
+    ):
+        self.whitened = whitened  # per group: W R, sparse (n_scans, N * nb), column i * nb + b
+        self.q = q  # (n_scans, rank)
         self.group = group  # per condition: its group
-        self.nb = regs[0].shape[2]
+        self.nb = nb
+        self.n_trials = whitened[0].shape[1] // nb
         self.col = np.full(n_conditions, -1)  # first column of each modelled condition
         for i, c in enumerate(modelled):
-            self.col[c] = i * self.nb
-        self.p = len(modelled) * self.nb
+            self.col[c] = i * nb
+        self.p = len(modelled) * nb
         self.modelled = modelled
+        self._gram: np.ndarray | None = None
+        self._own: np.ndarray | None = None
+
+    def _labels(self, codes: np.ndarray, g: int) -> sparse.csr_matrix:
+        """Z of group g for one ordering: (N * nb, p), trial i's basis b to its condition's column b."""
+        c = np.asarray(codes)
+        keep = (self.col[c] >= 0) & (self.group[c] == g)
+        t = np.flatnonzero(keep)
+        rows = (t[:, None] * self.nb + np.arange(self.nb)).ravel()
+        cols = (self.col[c[t]][:, None] + np.arange(self.nb)).ravel()
+        return sparse.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(self.n_trials * self.nb, self.p))
 
     def design(self, codes: np.ndarray) -> np.ndarray:
         """X for labels codes (B, N): shape (B, n_scans, p), columns (condition, basis)."""
-        b = codes.shape[0]
-        n, n_trials = self.regs[0].shape[:2]
-        x = np.empty((b, n, len(self.modelled), self.nb))
-        for g, reg in enumerate(self.regs):
-            conds = [c for c in self.modelled if self.group[c] == g]
-            if not conds:
-                continue
-            masks = (codes[:, None, :] == np.array(conds)[None, :, None]).astype(float)  # (B, C, N)
-            flat = reg.transpose(1, 0, 2).reshape(n_trials, n * self.nb)  # (N, n * nb)
-            xg = (masks.reshape(-1, n_trials) @ flat).reshape(b, len(conds), n, self.nb)
-            for k, c in enumerate(conds):
-                x[:, :, self.col[c] // self.nb, :] = xg[:, k]
-        return x.reshape(b, n, self.p)
+        codes = np.atleast_2d(codes)
+        x = np.empty((codes.shape[0], self.whitened[0].shape[0], self.p))
+        for k, row in enumerate(codes):
+            y = np.zeros(x.shape[1:])
+            for g, w in enumerate(self.whitened):
+                y += (w @ self._labels(row, g)).toarray()
+            x[k] = y - self.q @ (self.q.T @ y)
+        return x
+
+    def cross(self, x: np.ndarray) -> np.ndarray:
+        """X' times each trial's filtered regressor, per group, from a filtered X (n_scans, p):
+        (G, N, p, nb)."""
+        return np.stack(
+            [np.asarray(w.T @ x).reshape(self.n_trials, self.nb, self.p).transpose(0, 2, 1) for w in self.whitened]
+        )
+
+    def _projected(self) -> list[np.ndarray]:
+        """Q'WR per group, each (rank, N * nb)."""
+        return [np.asarray((w.T @ self.q).T) for w in self.whitened]
+
+    def gram(self) -> np.ndarray:
+        """All trials' filtered regressor products between groups, (G, G, N, nb, N, nb): dense,
+        built on first use (the neighbour scores read it): WR'WR - (Q'WR)'(Q'WR)."""
+        if self._gram is None:
+            proj, n, nb = self._projected(), self.n_trials, self.nb
+            self._gram = np.array(
+                [
+                    [((a.T @ b).toarray() - pa.T @ pb).reshape(n, nb, n, nb) for b, pb in zip(self.whitened, proj)]
+                    for a, pa in zip(self.whitened, proj)
+                ]
+            )
+        return self._gram
+
+    def own(self) -> np.ndarray:
+        """Each trial's filtered regressor products between groups, (G, G, N, nb, nb)."""
+        if self._own is None:
+            proj, n, nb = self._projected(), self.n_trials, self.nb
+            groups = len(self.whitened)
+            out = np.empty((groups, groups, n, nb, nb))
+            for g, (a, pa) in enumerate(zip(self.whitened, proj)):
+                for h, (b, pb) in enumerate(zip(self.whitened, proj)):
+                    for i in range(nb):
+                        for j in range(nb):
+                            raw = np.asarray(a[:, i::nb].multiply(b[:, j::nb]).sum(axis=0)).ravel()
+                            out[g, h, :, i, j] = raw - np.einsum("rn,rn->n", pa[:, i::nb], pb[:, j::nb])
+            self._own = out
+        return self._own
 
 
 class Evaluator:
@@ -177,6 +236,9 @@ class Evaluator:
     circular : treat each run as presented periodically (the response wraps round).
     compiled : use the numba kernels of kernels.py where they apply (same results; False keeps
         to the numpy paths, which the tests also check).
+
+    Memory is linear in the number of trials until neighbour scores are asked for (those read
+    all trials' products, `_Part.gram` and `omega`, built then).
     """
 
     def __init__(
@@ -186,57 +248,34 @@ class Evaluator:
         self.circular = circular
         self.compiled = compiled
         with one_blas_thread():
-            self.q = nuisance_basis(setup, layout.run_lengths)
+            self.q, self.q_starts = run_bases(
+                layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree, setup.ar1
+            )
+            self.w = whitening_matrix(setup.ar1, layout.run_lengths)
             self.det = self._detection_part()
+            self.hits = fir_hits(setup, layout, circular)
             self.fir_scan = self._fir_scans()  # (N, lags): volume index of each trial's lag, -1 outside
             lagged = self.fir_scan * setup.fir_lags + np.arange(setup.fir_lags)
             lagged = lagged[self.fir_scan >= 0]
             self.fir_unique = len(np.unique(lagged)) == len(lagged)
+            fir = self._whiten(fir_regressors(setup, layout, self.hits))
             self.est = _Part(
-                [self._filter(self._fir_raw())], np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions
+                [fir], self.q, np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions, setup.fir_lags
             )
-            self.omega = self._omega()
+            self._fir_kernels()
+        self._omega: np.ndarray | None = None
         self.c_det = setup.detection_contrast()
         self.c_est = setup.estimation_contrast()
-        self.k_det = _kernels().prepare_contrast(self.c_det)
-        self.k_est = _kernels().prepare_contrast(self.c_est)
+        self.k_det = _kernels().prepare_contrast(self.c_det) if compiled else None
+        self.k_est = _kernels().prepare_contrast(self.c_est) if compiled else None
         self.band = self._band() if compiled else None
 
-    # -- building the filtered trial regressors ------------------------------------------------
+    # -- building the trial regressors ----------------------------------------------------------
 
-    def _filter(self, raw: np.ndarray) -> np.ndarray:
-        """Prewhiten and remove the nuisance space: (n_scans, N, nb) -> same shape."""
-        n, t, nb = raw.shape
-        w = whiten(raw.reshape(n, t * nb), self.setup.ar1, self.layout.run_lengths)
-        w -= self.q @ (self.q.T @ w)
-        return w.reshape(n, t, nb)
-
-    def _responses(self, box_len: int) -> np.ndarray:
-        """Unfiltered response of every trial to a boxcar of box_len samples: (n_scans, N, n_basis)."""
-        lay, res = self.layout, self.setup.resolution
-        steps = np.cumsum(self.setup.kernels, axis=1) * res  # step responses
-        kl = steps.shape[1]
-
-        def step_at(j):
-            j = np.asarray(j)
-            inside = np.clip(j, 0, kl - 1)
-            return np.where(j[None] < 0, 0.0, steps[:, inside])
-
-        out = np.zeros((lay.n_scans, lay.n_trials, steps.shape[0]))
-        row = 0
-        for r, scans in enumerate(lay.scan_idx):
-            trials = np.flatnonzero(lay.run_of == r)
-            d = scans[:, None] - lay.onset_idx[None, trials]  # (n_r, N_r)
-            if self.circular:
-                d = d % lay.run_fine[r]
-                wraps = int(np.ceil((kl + box_len) / lay.run_fine[r])) + 1
-                resp = sum(
-                    step_at(d + m * lay.run_fine[r]) - step_at(d + m * lay.run_fine[r] - box_len) for m in range(wraps)
-                )
-            else:
-                resp = step_at(d) - step_at(d - box_len)
-            out[row : row + len(scans)][:, trials, :] = np.moveaxis(resp, 0, -1)
-            row += len(scans)
+    def _whiten(self, raw: sparse.csc_matrix) -> sparse.csc_matrix:
+        """W raw, sparse (the AR(1) filter is bidiagonal), without stored zeros."""
+        out = (self.w @ raw).tocsc()
+        out.eliminate_zeros()
         return out
 
     def _duration_groups(self) -> tuple[list[int], np.ndarray]:
@@ -251,24 +290,22 @@ class Evaluator:
 
     def _detection_part(self) -> _Part:
         groups, group = self._duration_groups()
-        regs = [self._filter(self._responses(L)) for L in groups]
-        return _Part(regs, group, self.setup.modelled, self.k)
+        regs = [self._whiten(trial_responses(self.setup, self.layout, length, self.circular)) for length in groups]
+        return _Part(regs, self.q, group, self.setup.modelled, self.k, self.setup.n_basis)
 
     def _band(self) -> tuple[np.ndarray, ...]:
-        """What _kernels().band_scores needs: the products of trials whose whitened responses overlap,
+        """What kernels.band_scores needs: the products of trials whose whitened responses overlap,
         by diagonal (trial i with trial i + d) and, for pairs far apart in a circular run, as a
         list; and the responses' products with Q."""
         nb = self.det.nb
-        lens, _ = self._duration_groups()
-        raw = [whiten(self._responses(L), self.setup.ar1, self.layout.run_lengths) for L in lens]
-        n, n_trials = raw[0].shape[:2]
-        flat = [sparse.csc_matrix(r.reshape(n, n_trials * nb)) for r in raw]
+        flat = self.det.whitened
+        n_trials = self.layout.n_trials
         prods = [[(a.T @ b).tocoo() for b in flat] for a in flat]  # exact zeros where no overlap
         gap = np.concatenate([pr.col // nb - pr.row // nb for row in prods for pr in row])
         gap = gap[gap >= 0]
         near = gap <= n_trials // 2 if self.circular else np.ones(gap.shape, dtype=bool)
         width = int(gap[near].max()) + 1 if near.any() else 1
-        groups = len(lens)
+        groups = len(flat)
         band = np.zeros((width, n_trials, groups, groups, nb, nb))
         far_keys = np.unique(
             np.concatenate(
@@ -290,7 +327,7 @@ class Evaluator:
                 k = np.searchsorted(far_keys, i[out] * n_trials + j[out])
                 far[k, g, h, pr.row[out] % nb, pr.col[out] % nb] = pr.data[out]
         band[0] *= 0.5  # band_scores adds each product's transpose
-        qr = np.stack([np.einsum("nib,nr->ibr", r, self.q) for r in raw], axis=1)  # (N, G, nb, r)
+        qr = np.stack([np.asarray(w.T @ self.q).reshape(n_trials, nb, -1) for w in flat], axis=1)  # (N, G, nb, r)
         return (
             band,
             (far_keys // n_trials).astype(np.int64),
@@ -299,42 +336,20 @@ class Evaluator:
             np.ascontiguousarray(qr),
         )
 
-    def _fir_hits(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(volume, trial, lag) of every FIR bin that a volume falls in, the reference's rule."""
-        lay = self.layout
-        edges = fir_bins(self.setup)
-        vols, trials, lags = [], [], []
-        row = 0
-        for r, scans in enumerate(lay.scan_idx):
-            for i in np.flatnonzero(lay.run_of == r):
-                d = scans - lay.onset_idx[i]
-                if self.circular:
-                    d = d % lay.run_fine[r]
-                lag = np.searchsorted(edges, d, side="right") - 1
-                hit = np.flatnonzero((d >= 0) & (lag < self.setup.fir_lags))
-                vols.append(row + hit)
-                trials.append(np.full(hit.size, i))
-                lags.append(lag[hit])
-            row += len(scans)
-        return tuple(np.concatenate(x).astype(np.int64) if x else np.zeros(0, np.int64) for x in (vols, trials, lags))
-
     def _fir_scans(self) -> np.ndarray:
         """(N, lags): the volume in each trial's lag bin, -1 outside the run (bins of one TR)."""
         out = np.full((self.layout.n_trials, self.setup.fir_lags), -1, dtype=np.int64)
-        vol, trial, lag = self._fir_hits()
+        vol, trial, lag = self.hits
         out[trial, lag] = vol  # one volume per lag when the bin is one TR wide
         return out
 
-    def _fir_raw(self) -> np.ndarray:
-        """Unfiltered 0/1 FIR regressors (n_scans, N, lags); wide bins count each volume they hold."""
-        raw = np.zeros((self.layout.n_scans, self.layout.n_trials, self.setup.fir_lags))
-        vol, trial, lag = self._fir_hits()
-        np.add.at(raw, (vol, trial, lag), 1.0)
-        return raw
-
     def _fir_bits(self, diag, off, qw) -> tuple | None:
-        """What _kernels().fir_bit_scores needs, or None where it does not apply: two trials at one
-        volume and lag (their columns would count 2 there), or too many distinct filter weights."""
+        """What kernels.fir_bit_scores needs, or None where it does not apply: two trials at one
+        volume and lag (their columns would count 2 there), or too many distinct filter weights.
+
+        W'Q is kept per trial and lag only over the columns of the trial's run (Q comes in run
+        blocks, zero elsewhere): qf (N, lags, width) from column qoff[trial], width the widest run
+        block, so its memory is linear in the trials, not trials x all runs' columns."""
         if not self.fir_unique:
             return None
         n = len(diag)
@@ -354,31 +369,41 @@ class Evaluator:
         if len(dw) > 4 or len(ow) > 4:
             return None
         fscan = np.where(self.fir_scan >= 0, self.fir_scan, n)  # n: a spare bit outside every mask
-        qf = np.where((self.fir_scan >= 0)[:, :, None], qw[np.minimum(fscan, n - 1)], 0.0)
-        return (fscan.astype(np.int64), np.ascontiguousarray(qf), n_words, dw, dmask, ow, omask)
+        rank = qw.shape[1]
+        width = int(np.diff(self.q_starts).max(initial=0))
+        qoff = np.minimum(self.q_starts[self.layout.run_of], rank - width).astype(np.int64)
+        qf = np.empty((len(fscan), self.setup.fir_lags, width))
+        for first in np.unique(qoff):  # per run: a block of W'Q's columns, gathered at the volumes
+            trials = np.flatnonzero(qoff == first)
+            qf[trials] = qw[np.minimum(fscan[trials], n - 1), first : first + width]
+        qf[self.fir_scan < 0] = 0.0
+        return (fscan.astype(np.int64), qf, qoff, rank, n_words, dw, dmask, ow, omask)
 
-    def _omega(self) -> np.ndarray:
-        """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries.
-
-        Also keeps what _kernels().fir_scores needs: the volumes' (trial, lag) hits, the tridiagonal
-        W'W and W'Q (None where the compiled path does not apply)."""
-        eye = np.eye(self.layout.n_scans)
-        w = whiten(eye, self.setup.ar1, self.layout.run_lengths)
+    def _fir_kernels(self) -> None:
+        """What kernels.fir_scores and fir_bit_scores need (None where they do not apply): the
+        volumes' (trial, lag) hits, the tridiagonal W'W of the AR(1) filter and W'Q."""
         self.fir_kernel = self.fir_bits = None
-        if self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9:
-            wtw = w.T @ w
-            n = len(wtw)
-            diag, off = np.diag(wtw).copy(), np.append(np.diag(wtw, 1), 0.0)
-            if np.allclose(wtw, np.diag(diag) + np.diag(off[:-1], 1) + np.diag(off[:-1], -1), rtol=0, atol=0):
-                t, lag = np.nonzero(self.fir_scan >= 0)
-                scan = self.fir_scan[t, lag]
-                order = np.argsort(scan, kind="stable")
-                ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
-                qw = w.T @ self.q
-                self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, qw)
-                self.fir_bits = self._fir_bits(diag, off, qw)
-        rw = w - self.q @ (self.q.T @ w)
-        return rw.T @ rw
+        if not (self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9):
+            return
+        wtw = (self.w.T @ self.w).tocsr()  # tridiagonal: W is bidiagonal within runs
+        n = wtw.shape[0]
+        diag, off = wtw.diagonal().copy(), np.append(wtw.diagonal(1), 0.0)
+        t, lag = np.nonzero(self.fir_scan >= 0)
+        scan = self.fir_scan[t, lag]
+        order = np.argsort(scan, kind="stable")
+        ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
+        qw = np.ascontiguousarray(self.w.T @ self.q)
+        self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, qw)
+        self.fir_bits = self._fir_bits(diag, off, qw)
+
+    @property
+    def omega(self) -> np.ndarray:
+        """W'(I - QQ')W over all volumes, (n_scans, n_scans): inner products of filtered 0/1 FIR
+        regressors are its entries. Dense, so built on first use (FIR neighbour scores)."""
+        if self._omega is None:
+            qw = np.asarray(self.w.T @ self.q)
+            self._omega = (self.w.T @ self.w).toarray() - qw @ qw.T
+        return self._omega
 
     # -- scoring ----------------------------------------------------------------------------
 
@@ -532,14 +557,14 @@ class Evaluator:
         """Scores of candidates given as column-block updates, in chunks that stay in cache.
 
         moves: the same candidates as (gaining condition, losing condition, trial, trial taken
-        away or -1), for the rank-2 path of _kernels().rank2_scores."""
+        away or -1), for the rank-2 path of kernels.rank2_scores."""
         n_cand = len(terms[0][0])
         chunk = max(1, 2_000_000 // (part.p * part.p))
         x = part.design(codes[None])[0]
         m = x.T @ x
-        xp = np.stack([np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs])  # (G, N, p, nb)
+        xp = part.cross(x)  # (G, N, p, nb)
         if self.compiled and (part is self.det or self.setup.fir_step <= self.setup.tr + 1e-9):
-            if moves is not None and part.nb == 1 and len(part.regs) == 1 and self.setup.criterion == "A":
+            if moves is not None and part.nb == 1 and len(part.whitened) == 1 and self.setup.criterion == "A":
                 out = self._rank2(part, m, xp, moves, contrast)
                 if out is not None:
                     redo = np.flatnonzero(np.isnan(out))
@@ -561,7 +586,7 @@ class Evaluator:
         return out
 
     def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
-        """_kernels().rank2_scores; None when the current design is singular."""
+        """kernels.rank2_scores; None when the current design is singular."""
         if _regular_cholesky(m) is None:
             return None
         minv = np.linalg.inv(m)
@@ -577,7 +602,7 @@ class Evaluator:
             x1,
             x1 @ minv,
             x1 @ h,
-            self._gram(part)[0, 0, :, 0, :, 0],
+            part.gram()[0, 0, :, 0, :, 0],
             part.col.astype(np.int64),
             gains,
             loses,
@@ -590,15 +615,15 @@ class Evaluator:
         (bins of one TR), detection's from the trials' Gram matrix."""
         if part is self.est:
             return 1, np.zeros((1, 1, 1, 1, 1, 1)), self.omega, self.fir_scan
-        return 0, self._gram(part), np.zeros((1, 1)), np.zeros((1, 1), dtype=np.int64)
+        return 0, part.gram(), np.zeros((1, 1)), np.zeros((1, 1), dtype=np.int64)
 
     def _compiled_terms(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray) -> np.ndarray:
         """Compiled scores of candidates given as (condition, trial, sign) terms.
 
         Candidates that touch the same condition blocks are scored together through the Cholesky
-        factor of the untouched blocks (_kernels().schur_scores) when there are enough of them to pay
+        factor of the untouched blocks (kernels.schur_scores) when there are enough of them to pay
         for its set-up; the rest, and designs whose untouched part is singular, one by one through
-        a whole factorisation (_kernels().update_scores)."""
+        a whole factorisation (kernels.update_scores)."""
         conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
         trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
         signs = np.array([sg for _, _, sg in terms], dtype=float)
@@ -644,7 +669,7 @@ class Evaluator:
         return out
 
     def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:
-        """_kernels().schur_scores for candidates that touch the blocks starting at columns `starts`;
+        """kernels.schur_scores for candidates that touch the blocks starting at columns `starts`;
         None when the untouched part of the current design is singular."""
         nb = part.nb
         s_idx = np.concatenate([np.arange(c, c + nb) for c in starts])
@@ -795,23 +820,9 @@ class Evaluator:
             vals = self.omega[np.maximum(s1, 0)[:, :, None], np.maximum(s2, 0)[:, None, :]]
             return vals * ((s1 >= 0)[:, :, None] & (s2 >= 0)[:, None, :])
         if np.array_equal(t1, t2):
-            return self._own(part)[part.group[c1], part.group[c2], t1]
-        gram = self._gram(part)
+            return part.own()[part.group[c1], part.group[c2], t1]
+        gram = part.gram()
         return gram[part.group[c1], part.group[c2], t1, :, t2, :]
-
-    def _gram(self, part: _Part) -> np.ndarray:
-        """All trials' regressor products between groups: (G, G, N, nb, N, nb), computed once."""
-        if getattr(part, "gram", None) is None:
-            regs = part.regs
-            part.gram = np.array([[np.einsum("nib,njc->ibjc", g, h, optimize=True) for h in regs] for g in regs])
-        return part.gram
-
-    def _own(self, part: _Part) -> np.ndarray:
-        """Each trial's regressor products between groups: (G, G, N, nb, nb), computed once."""
-        if getattr(part, "own", None) is None:
-            regs = part.regs
-            part.own = np.array([[np.einsum("nib,nic->ibc", g, h, optimize=True) for h in regs] for g in regs])
-        return part.own
 
 
 def _regular_cholesky(m: np.ndarray) -> np.ndarray | None:

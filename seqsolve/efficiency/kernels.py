@@ -255,7 +255,7 @@ def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, ct, acti
 
 
 @njit(cache=True, fastmath=_FAST)
-def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, active, d_criterion):
+def fir_bit_scores(codes, col, fscan, qf, qoff, rank, n_words, dw, dmask, ow, omask, ct, active, d_criterion):
     """fir_scores for designs where no two trials of a design share a volume at the same lag:
     each FIR column is then a set of volumes, kept as a bitset, and the products of two columns
     are counts of the volumes they share, by popcount.
@@ -264,11 +264,14 @@ def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, act
     where dmask[k] marks the volumes whose W'W diagonal is dw[k], and omask[k] the volumes s whose
     W'W entry with s + 1 is ow[k] (AR(1) prewhitening; none without it). Then M -= Y Y' as before.
     fscan (N, lags): each trial's volume at each lag (a spare bit past the last volume, outside
-    every mask, where the lag falls outside the run); qf (N, lags, r): W'Q at those volumes (0 outside).
+    every mask, where the lag falls outside the run); qf (N, lags, width): W'Q at those volumes (0
+    outside) in columns qoff[trial] onwards (W'Q is zero outside the trial's run's columns), of the
+    `rank` columns of Q.
     """
     n_designs, n_trials = codes.shape
     lags = fscan.shape[1]
-    r = qf.shape[2]
+    r = rank
+    width = qf.shape[2]
     p = ct.shape[0]
     nd = len(dw)
     no = len(ow)
@@ -292,8 +295,9 @@ def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, act
             for lag in range(lags):
                 sc = fscan[t, lag]
                 bits[c + lag, sc >> 6] |= one << np.uint64(sc & 63)
-                for a in range(r):
-                    y[c + lag, a] += qf[t, lag, a]
+                first = qoff[t]
+                for a in range(width):
+                    y[c + lag, first + a] += qf[t, lag, a]
         if no:
             for j in range(p):
                 for w in range(n_words):

@@ -121,7 +121,9 @@ def test_cases_cover_every_compiled_estimation_kernel():
     for case in CASES:
         study, setup, layout, _, _ = build(case)
         ev = Evaluator(setup, layout, study.facts.n_conditions)
-        kind = "bits" if ev.fir_bits is not None else "hits" if ev.fir_kernel is not None else "numpy"
+        kind = {"FirBitsEstimation": "bits", "FirHitsEstimation": "hits", "MatrixScores": "numpy"}[
+            type(ev.full_estimation).__name__
+        ]
         kinds.setdefault(kind, []).append(case)
     assert set(kinds) == {"bits", "hits", "numpy"}, kinds
     assert "two runs, drift, ar1" in kinds["bits"]  # AR(1) weights through the masks
@@ -146,7 +148,7 @@ def test_circular_presentation_matches_reference(compiled):
     study, setup, layout, codes, rng = build("plain")
     ev = Evaluator(setup, layout, study.facts.n_conditions, circular=True, compiled=compiled)
     if compiled:  # responses wrap round the run: some overlapping trials lie far apart in the list
-        assert len(ev.band[1]) > 0
+        assert len(ev.full_detection.far_i) > 0
     designs = np.array([codes] + [rng.permutation(codes) for _ in range(3)])
     det, est = ev.score_many(designs)
     for d, a, b in zip(designs, det, est):

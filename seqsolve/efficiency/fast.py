@@ -20,6 +20,15 @@ from threadpoolctl import ThreadpoolController
 
 from seqsolve.efficiency.grid import Layout
 from seqsolve.efficiency.nuisance import run_bases, whiten, whitening_matrix
+from seqsolve.efficiency.paths import (
+    BandDetection,
+    FirBitsEstimation,
+    FirHitsEstimation,
+    KernelContrast,
+    MatrixScores,
+    prepare_contrast,
+)
+from seqsolve.efficiency.paths import kernels as _kernels
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix
 from seqsolve.efficiency.regressors import fir_hits, fir_regressors, trial_responses
 from seqsolve.efficiency.setup import AnalysisSetup
@@ -33,14 +42,6 @@ SCHUR_MIN = 64
 SCHUR_MIN_COLUMNS = 12
 
 _THREADPOOLS: ThreadpoolController | None = None
-
-
-def _kernels():
-    """kernels.py, imported when a kernel is first needed: importing numba and loading the cached
-    machine code costs about a second, which `import seqsolve` and the numpy paths should not pay."""
-    from seqsolve.efficiency import kernels
-
-    return kernels
 
 
 def one_blas_thread():
@@ -262,13 +263,22 @@ class Evaluator:
             self.est = _Part(
                 [fir], self.q, np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions, setup.fir_lags
             )
-            self._fir_kernels()
         self._omega: np.ndarray | None = None
         self.c_det = setup.detection_contrast()
         self.c_est = setup.estimation_contrast()
-        self.k_det = _kernels().prepare_contrast(self.c_det) if compiled else None
-        self.k_est = _kernels().prepare_contrast(self.c_est) if compiled else None
-        self.band = self._band() if compiled else None
+        self.full_detection, self.full_estimation = self._full_paths()
+
+    def _full_paths(self) -> tuple:
+        """The one place that chooses how full scores are computed (paths.py): the compiled
+        kernels where they apply, else information matrices built whole (numpy)."""
+        crit = self.setup.criterion
+        det = MatrixScores(self._detection_information, self.c_det, crit)
+        est = MatrixScores(self._fir_information, self.c_est, crit)
+        if self.compiled:
+            det = self._band(KernelContrast.of(self.c_det, crit))
+            if self.setup.fir_step <= self.setup.tr + 1e-9:  # one volume per FIR bin
+                est = self._fir_path(KernelContrast.of(self.c_est, crit))
+        return det, est
 
     # -- building the trial regressors ----------------------------------------------------------
 
@@ -293,7 +303,7 @@ class Evaluator:
         regs = [self._whiten(trial_responses(self.setup, self.layout, length, self.circular)) for length in groups]
         return _Part(regs, self.q, group, self.setup.modelled, self.k, self.setup.n_basis)
 
-    def _band(self) -> tuple[np.ndarray, ...]:
+    def _band(self, contrast: KernelContrast) -> BandDetection:
         """What kernels.band_scores needs: the products of trials whose whitened responses overlap,
         by diagonal (trial i with trial i + d) and, for pairs far apart in a circular run, as a
         list; and the responses' products with Q."""
@@ -328,12 +338,16 @@ class Evaluator:
                 far[k, g, h, pr.row[out] % nb, pr.col[out] % nb] = pr.data[out]
         band[0] *= 0.5  # band_scores adds each product's transpose
         qr = np.stack([np.asarray(w.T @ self.q).reshape(n_trials, nb, -1) for w in flat], axis=1)  # (N, G, nb, r)
-        return (
+        return BandDetection(
+            self.det.col.astype(np.int64),
+            self.det.group.astype(np.int64),
+            nb,
             band,
             (far_keys // n_trials).astype(np.int64),
             (far_keys % n_trials).astype(np.int64),
             far,
             np.ascontiguousarray(qr),
+            contrast,
         )
 
     def _fir_scans(self) -> np.ndarray:
@@ -343,7 +357,7 @@ class Evaluator:
         out[trial, lag] = vol  # one volume per lag when the bin is one TR wide
         return out
 
-    def _fir_bits(self, diag, off, qw) -> tuple | None:
+    def _fir_bits(self, diag, off, qw, contrast: KernelContrast) -> FirBitsEstimation | None:
         """What kernels.fir_bit_scores needs, or None where it does not apply: two trials at one
         volume and lag (their columns would count 2 there), or too many distinct filter weights.
 
@@ -377,24 +391,26 @@ class Evaluator:
             trials = np.flatnonzero(qoff == first)
             qf[trials] = qw[np.minimum(fscan[trials], n - 1), first : first + width]
         qf[self.fir_scan < 0] = 0.0
-        return (fscan.astype(np.int64), qf, qoff, rank, n_words, dw, dmask, ow, omask)
+        col = self.est.col.astype(np.int64)
+        return FirBitsEstimation(col, fscan.astype(np.int64), qf, qoff, rank, n_words, dw, dmask, ow, omask, contrast)
 
-    def _fir_kernels(self) -> None:
-        """What kernels.fir_scores and fir_bit_scores need (None where they do not apply): the
-        volumes' (trial, lag) hits, the tridiagonal W'W of the AR(1) filter and W'Q."""
-        self.fir_kernel = self.fir_bits = None
-        if not (self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9):
-            return
+    def _fir_path(self, contrast: KernelContrast) -> FirBitsEstimation | FirHitsEstimation:
+        """The compiled FIR path (bins of one TR): bitsets where they apply, else the volumes'
+        (trial, lag) hits; both read the tridiagonal W'W of the AR(1) filter and W'Q."""
         wtw = (self.w.T @ self.w).tocsr()  # tridiagonal: W is bidiagonal within runs
         n = wtw.shape[0]
         diag, off = wtw.diagonal().copy(), np.append(wtw.diagonal(1), 0.0)
+        qw = np.ascontiguousarray(self.w.T @ self.q)
+        bits = self._fir_bits(diag, off, qw, contrast)
+        if bits is not None:
+            return bits
         t, lag = np.nonzero(self.fir_scan >= 0)
         scan = self.fir_scan[t, lag]
         order = np.argsort(scan, kind="stable")
         ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
-        qw = np.ascontiguousarray(self.w.T @ self.q)
-        self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, qw)
-        self.fir_bits = self._fir_bits(diag, off, qw)
+        col = self.est.col.astype(np.int64)
+        hit_t, hit_lag = t[order].astype(np.int64), lag[order].astype(np.int64)
+        return FirHitsEstimation(col, ptr, hit_t, hit_lag, diag, off, qw, contrast)
 
     @property
     def omega(self) -> np.ndarray:
@@ -421,49 +437,19 @@ class Evaluator:
 
         A part not asked for comes back as NaN.
         """
-        codes = np.atleast_2d(codes)
-        codes64 = np.ascontiguousarray(codes, dtype=np.int64)  # what the kernels take
+        codes = np.ascontiguousarray(np.atleast_2d(codes), dtype=np.int64)  # what the kernels take
         det = est = np.full(codes.shape[0], np.nan)
         with one_blas_thread():
-            if detection and self.band is not None:
-                det = _kernels().band_scores(
-                    codes64,
-                    self.det.col.astype(np.int64),
-                    self.det.group.astype(np.int64),
-                    self.det.nb,
-                    *self.band,
-                    *self.k_det,
-                    self.setup.criterion == "D",
-                )
-            elif detection:
-                xd = self.det.design(codes)
-                md = np.swapaxes(xd, 1, 2) @ xd
-                det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
-            if estimation and self.fir_bits is not None:
-                est = _kernels().fir_bit_scores(
-                    codes64,
-                    self.est.col.astype(np.int64),
-                    *self.fir_bits,
-                    *self.k_est,
-                    self.setup.criterion == "D",
-                )
-            elif estimation and self.fir_kernel is not None:
-                ptr, trial, lag, diag, off, qw = self.fir_kernel
-                est = _kernels().fir_scores(
-                    codes64,
-                    self.est.col.astype(np.int64),
-                    ptr,
-                    trial,
-                    lag,
-                    diag,
-                    off,
-                    np.ascontiguousarray(qw),
-                    *self.k_est,
-                    self.setup.criterion == "D",
-                )
-            elif estimation:
-                est, _ = batch_efficiency(self._fir_information(codes), self.c_est, self.setup.criterion)
+            if detection:
+                det = self.full_detection.scores(codes)
+            if estimation:
+                est = self.full_estimation.scores(codes)
         return det, est
+
+    def _detection_information(self, codes: np.ndarray) -> np.ndarray:
+        """Detection information for many orderings (B, p, p), from their design matrices."""
+        xd = self.det.design(codes)
+        return np.swapaxes(xd, 1, 2) @ xd
 
     def _fir_information(self, codes: np.ndarray) -> np.ndarray:
         """FIR information for many orderings: build the 0/1 design by scatter, then filter it.
@@ -636,7 +622,7 @@ class Evaluator:
         lo = np.where(cols >= 0, cols, part.p).min(axis=1)
         hi = cols.max(axis=1)
         key = lo * (part.p + 1) + np.maximum(hi, 0)
-        prepared = _kernels().prepare_contrast(contrast)
+        prepared = prepare_contrast(contrast)
 
         def whole(sel: np.ndarray) -> np.ndarray:  # one whole factorisation per candidate
             return _kernels().update_scores(

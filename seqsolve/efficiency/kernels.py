@@ -63,25 +63,10 @@ def _cholesky_against(a, out, rcond, ref):
     return True
 
 
-def prepare_contrast(contrast: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """C' with its columns ordered by their first non-zero weight, and for each parameter i the
-    number of those columns that start at or before i: the shape _efficiency expects.
-
-    Reordering contrast rows changes neither trace(C M^-1 C') nor its determinant, and with the
-    rows in this order (L^-1 C')'s row i is zero beyond active[i] (C kron I for FIR is mostly zeros).
-    """
-    c = np.asarray(contrast, dtype=float)
-    nonzero = c != 0
-    first = np.where(nonzero.any(axis=1), nonzero.argmax(axis=1), c.shape[1])
-    order = np.argsort(first, kind="stable")
-    active = np.searchsorted(first[order], np.arange(c.shape[1]), side="right")
-    return np.ascontiguousarray(c[order].T), active.astype(np.int64)
-
-
 @njit(cache=True, fastmath=_FAST)
 def _efficiency(m, ct, active, d_criterion, work, half):
     """A- or D-efficiency of information m (only its lower triangle is read) for the contrast
-    prepared by prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
+    prepared by paths.prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
 
     work (p, p) and half (p, q) are scratch space; m may be larger (its leading p x p block counts)."""
     if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle

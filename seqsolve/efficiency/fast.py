@@ -15,10 +15,20 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import sparse
-from scipy.linalg import solve_triangular
-from threadpoolctl import ThreadpoolController
 
+from seqsolve.efficiency.algebra import batch_efficiency, one_blas_thread
 from seqsolve.efficiency.grid import Layout
+from seqsolve.efficiency.neighbours import (
+    Candidates,
+    Current,
+    DenseUpdate,
+    Rank2Update,
+    SchurUpdate,
+    TrialProducts,
+    WholeUpdate,
+    WoodburyUpdate,
+    block_groups,
+)
 from seqsolve.efficiency.nuisance import run_bases, whiten, whitening_matrix
 from seqsolve.efficiency.paths import (
     BandDetection,
@@ -26,64 +36,15 @@ from seqsolve.efficiency.paths import (
     FirHitsEstimation,
     KernelContrast,
     MatrixScores,
-    prepare_contrast,
 )
-from seqsolve.efficiency.paths import kernels as _kernels
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix
 from seqsolve.efficiency.regressors import fir_hits, fir_regressors, trial_responses
 from seqsolve.efficiency.setup import AnalysisSetup
-
-#: information matrices with a smaller reciprocal condition number count as singular
-RCOND = 1e-10
 
 #: fewest candidates touching the same blocks for which the shared factorisation pays (measured)
 SCHUR_MIN = 64
 #: and fewest columns (below it one whole small factorisation per candidate is cheaper, measured)
 SCHUR_MIN_COLUMNS = 12
-
-_THREADPOOLS: ThreadpoolController | None = None
-
-
-def one_blas_thread():
-    """Context pinning BLAS to one thread: on small, many products a threaded BLAS is far slower
-    under load (measured), and processes, not threads, are how seqsolve uses both cores."""
-    global _THREADPOOLS
-    if _THREADPOOLS is None:
-        _THREADPOOLS = ThreadpoolController()  # finding the libraries is the slow part: once
-    return _THREADPOOLS.limit(limits=1)
-
-
-def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") -> tuple[np.ndarray, np.ndarray]:
-    """Efficiency of each information matrix in m (B, p, p) for contrast (q, p).
-
-    Returns (efficiency (B,), singular (B,) bool); singular designs get efficiency 0. A matrix is
-    singular when a Cholesky pivot squared falls below RCOND times its diagonal entry (or the
-    factorisation fails, in which case eigenvalues decide for the whole batch).
-    """
-    m = np.asarray(m, dtype=float)
-    try:
-        chol = np.linalg.cholesky(m)
-        pivots = np.diagonal(chol, axis1=1, axis2=2) ** 2
-        singular = (pivots <= RCOND * np.maximum(np.diagonal(m, axis1=1, axis2=2), 1e-300)).any(axis=1)
-    except np.linalg.LinAlgError:
-        eig = np.linalg.eigvalsh(m)
-        singular = eig[:, 0] <= RCOND * np.maximum(eig[:, -1], 1e-300)
-        m = np.where(singular[:, None, None], np.eye(m.shape[1]), m)
-        chol = np.linalg.cholesky(m)
-    chol = np.where(singular[:, None, None], np.eye(m.shape[1]), chol)
-    rhs = np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape)
-    # L^-1 C': scipy's triangular solve loops in Python per matrix, numpy's general solve in C;
-    # the first wins for large matrices, the second for small ones (measured)
-    if m.shape[1] > 16:
-        half = solve_triangular(chol, rhs, lower=True, check_finite=False)
-    else:
-        half = np.linalg.solve(chol, rhs)
-    if criterion == "D":
-        sign, logdet = np.linalg.slogdet(np.swapaxes(half, 1, 2) @ half)
-        eff = np.where(sign > 0, np.exp(-logdet / contrast.shape[0]), 0.0)
-    else:
-        eff = 1.0 / np.einsum("bij,bij->b", half, half)
-    return np.where(singular, 0.0, eff), singular
 
 
 def nuisance_basis(setup: AnalysisSetup, run_lengths: list[int]) -> np.ndarray:
@@ -526,7 +487,8 @@ class Evaluator:
         new = np.tile(np.arange(self.k), len(trials))
         terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
         moves = (new, codes[trial], trial, np.full(len(trial), -1))
-        return self._score_terms(part, codes, terms, contrast, fir=False, moves=moves).reshape(len(trials), self.k)
+        cands = Candidates.of(terms, moves)
+        return self._neighbour_scores(part, codes, cands, contrast, fir=False).reshape(len(trials), self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
         """Swap trials i and j: condition c_j gains trial i and loses j, c_i the reverse."""
@@ -535,301 +497,53 @@ class Evaluator:
         i, j = pairs[:, 0], pairs[:, 1]
         ci, cj = codes[i], codes[j]
         terms = [(cj, i, 1.0), (cj, j, -1.0), (ci, j, 1.0), (ci, i, -1.0)]
-        return self._score_terms(part, codes, terms, contrast, fir=fir, moves=(cj, ci, i, j))
+        return self._neighbour_scores(part, codes, Candidates.of(terms, (cj, ci, i, j)), contrast, fir)
 
-    def _score_terms(
-        self, part: _Part, codes: np.ndarray, terms, contrast: np.ndarray, fir: bool, moves=None
+    def _neighbour_scores(
+        self, part: _Part, codes: np.ndarray, cands: Candidates, contrast: np.ndarray, fir: bool
     ) -> np.ndarray:
-        """Scores of candidates given as column-block updates, in chunks that stay in cache.
+        """Scores of candidates given as column-block updates of the current design: the one place
+        that chooses how (neighbours.py), each fallback taking exactly what the faster path left.
 
-        moves: the same candidates as (gaining condition, losing condition, trial, trial taken
-        away or -1), for the rank-2 path of kernels.rank2_scores."""
-        n_cand = len(terms[0][0])
-        chunk = max(1, 2_000_000 // (part.p * part.p))
-        x = part.design(codes[None])[0]
-        m = x.T @ x
-        xp = part.cross(x)  # (G, N, p, nb)
-        if self.compiled and (part is self.det or self.setup.fir_step <= self.setup.tr + 1e-9):
-            if moves is not None and part.nb == 1 and len(part.whitened) == 1 and self.setup.criterion == "A":
-                out = self._rank2(part, m, xp, moves, contrast)
-                if out is not None:
-                    redo = np.flatnonzero(np.isnan(out))
-                    if len(redo):
-                        out[redo] = self._compiled_terms(
-                            part, m, xp, [(c[redo], t[redo], sg) for c, t, sg in terms], contrast
-                        )
-                    return out
-            return self._compiled_terms(part, m, xp, terms, contrast)
-        if part.nb == 1 and self.setup.criterion == "A":
-            fast = self._woodbury(part, m, xp, terms, contrast, fir)
-            if fast is not None:
-                return fast
-        out = np.empty(n_cand)
-        for lo in range(0, n_cand, chunk):
-            sl = slice(lo, lo + chunk)
-            sub = [(c[sl], t[sl], sg) for c, t, sg in terms]
-            out[sl] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, self.setup.criterion)[0]
-        return out
-
-    def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
-        """kernels.rank2_scores; None when the current design is singular."""
-        if _regular_cholesky(m) is None:
-            return None
-        minv = np.linalg.inv(m)
-        minv = (minv + minv.T) / 2
-        cm = contrast @ minv
-        h = cm.T @ cm
-        x1 = np.ascontiguousarray(xp[0, :, :, 0])
-        gains, loses, t1, t2 = (np.ascontiguousarray(v, dtype=np.int64) for v in moves)
-        return _kernels().rank2_scores(
-            minv,
-            h,
-            float(np.trace(cm @ contrast.T)),
-            x1,
-            x1 @ minv,
-            x1 @ h,
-            part.gram()[0, 0, :, 0, :, 0],
-            part.col.astype(np.int64),
-            gains,
-            loses,
-            t1,
-            t2,
-        )
-
-    def _cross_source(self, part: _Part) -> tuple:
-        """Where the compiled kernels read trial products: FIR's from Omega at the trials' volumes
-        (bins of one TR), detection's from the trials' Gram matrix."""
-        if part is self.est:
-            return 1, np.zeros((1, 1, 1, 1, 1, 1)), self.omega, self.fir_scan
-        return 0, part.gram(), np.zeros((1, 1)), np.zeros((1, 1), dtype=np.int64)
-
-    def _compiled_terms(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray) -> np.ndarray:
-        """Compiled scores of candidates given as (condition, trial, sign) terms.
-
-        Candidates that touch the same condition blocks are scored together through the Cholesky
-        factor of the untouched blocks (kernels.schur_scores) when there are enough of them to pay
-        for its set-up; the rest, and designs whose untouched part is singular, one by one through
-        a whole factorisation (kernels.update_scores)."""
-        conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
-        trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
-        signs = np.array([sg for _, _, sg in terms], dtype=float)
-        xp = np.ascontiguousarray(xp)
-        source = self._cross_source(part)
-        d_crit = self.setup.criterion == "D"
-        out = np.full(len(conds), np.nan)
-        # the blocks a candidate touches: the modelled conditions among its terms (at most two)
-        cols = part.col[conds]
-        lo = np.where(cols >= 0, cols, part.p).min(axis=1)
-        hi = cols.max(axis=1)
-        key = lo * (part.p + 1) + np.maximum(hi, 0)
-        prepared = prepare_contrast(contrast)
-
-        def whole(sel: np.ndarray) -> np.ndarray:  # one whole factorisation per candidate
-            return _kernels().update_scores(
-                m,
-                xp,
-                *source,
-                part.col.astype(np.int64),
-                part.group.astype(np.int64),
-                part.nb,
-                conds[sel],
-                trials[sel],
-                signs,
-                *prepared,
-                d_crit,
-            )
-
-        for k in np.unique(key):
-            idx = np.flatnonzero(key == k)
-            first, last = int(lo[idx[0]]), int(hi[idx[0]])
-            if first == part.p:  # baseline trials only: the design does not change
-                out[idx] = whole(idx[:1])[0]
-                continue
-            if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
-                starts = [first] if first == last else [first, last]
-                done = self._schur(part, m, xp, source, starts, conds[idx], trials[idx], signs, contrast)
-                if done is not None:
-                    out[idx] = done
-                    continue
-            out[idx] = whole(idx)
-        return out
-
-    def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:
-        """kernels.schur_scores for candidates that touch the blocks starting at columns `starts`;
-        None when the untouched part of the current design is singular."""
-        nb = part.nb
-        s_idx = np.concatenate([np.arange(c, c + nb) for c in starts])
-        r_idx = np.setdiff1d(np.arange(part.p), s_idx)
-        ct = np.asarray(contrast, dtype=float).T  # (p, q)
-        if len(r_idx):
-            l_rr = _regular_cholesky(m[np.ix_(r_idx, r_idx)])
-            if l_rr is None:
-                return None
-            li = solve_triangular(l_rr, np.eye(len(r_idx)), lower=True, check_finite=False)
-        else:
-            li = np.zeros((0, 0))
-        a0 = m[np.ix_(s_idx, r_idx)] @ li.T
-        g_r = li @ ct[r_idx]  # (r, q)
-        h0 = ct[s_idx] - a0 @ g_r
-        e = np.einsum("rk,gnkb->gnbr", li, xp[:, :, r_idx, :], optimize=True)
-        eg = e @ g_r
-        us = np.ascontiguousarray(xp[:, :, s_idx, :])
-        # order the contrasts by their first non-zero row in S (zeros are structural)
-        used = (h0 != 0) | (eg != 0).any(axis=(0, 1, 2))[None, :]
-        first = np.where(used.any(axis=0), used.argmax(axis=0), len(s_idx))
-        order = np.argsort(first, kind="stable")
-        active = np.searchsorted(first[order], np.arange(len(s_idx)), side="right").astype(np.int64)
-        g_r = g_r[:, order]
-        const = g_r.T @ g_r if self.setup.criterion == "D" else np.array([[np.sum(g_r * g_r)]])
-        block = np.full(part.p + 1, -1, dtype=np.int64)
-        for b, c in enumerate(starts):
-            block[c] = b
-        blocks = block[np.where(part.col[conds] >= 0, part.col[conds], part.p)]
-        return _kernels().schur_scores(
-            np.ascontiguousarray(m[np.ix_(s_idx, s_idx)]),
-            np.ascontiguousarray(a0),
-            np.ascontiguousarray(h0[:, order]),
-            active,
-            np.ascontiguousarray(const),
-            np.ascontiguousarray(e),
-            np.ascontiguousarray(eg[..., order]),
-            us,
-            *source,
-            part.group.astype(np.int64),
-            nb,
-            conds,
-            np.ascontiguousarray(blocks),
-            trials,
-            signs,
-            self.setup.criterion == "D",
-        )
-
-    def _woodbury(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray, fir: bool):
-        """One-regressor-per-condition case: each candidate changes M by U S U' with U of 4 columns
-        (two unit vectors and two X'd vectors), so its trace(C M'^-1 C') follows from 4 x 4 algebra.
-        Candidates whose update nearly cancels M's rank are recomputed the plain way; None if M itself
-        is singular."""
-        if _regular_cholesky(m) is None:
-            return None
-        minv = np.linalg.inv(m)
-        h = minv @ contrast.T @ contrast @ minv
-        t0 = float(np.trace(contrast @ minv @ contrast.T))
-        # merge the terms into two blocks: (condition a, vector va) and (condition b, vector vb)
-        blocks = _two_blocks(terms)
-        n_cand = len(terms[0][0])
-        cols, avec = [], []
-        for cond, members in blocks:
-            has = part.col[cond] >= 0
-            a = sum(sg * xp[part.group[cond], t][:, :, 0] for t, sg in members) * has[:, None]  # (B, p)
-            cols.append((np.maximum(part.col[cond], 0), has))
-            avec.append(a)
-        dm = np.zeros((n_cand, 2, 2))
-        for x_, (cond1, mem1) in enumerate(blocks):
-            for y_, (cond2, mem2) in enumerate(blocks):
-                has = (part.col[cond1] >= 0) & (part.col[cond2] >= 0)
-                for t1, s1 in mem1:
-                    for t2, s2 in mem2:
-                        dm[:, x_, y_] += s1 * s2 * self._cross(part, cond1, cond2, t1, t2, fir)[:, 0, 0] * has
-
-        # U = [e_a, e_b, A_a, A_b]; the products U' Minv U and U' H U, entry by entry
-        def unit_prod(mat, c1, c2):
-            return mat[c1[0], c2[0]] * c1[1] * c2[1]
-
-        def mixed(mat_a, c1):  # e_c' (mat a) for each candidate
-            return mat_a[np.arange(n_cand), c1[0]] * c1[1]
-
-        us = []
-        for mat in (minv, h):
-            ma = [a @ mat for a in avec]  # rows: a' mat (mat symmetric)
-            g = np.empty((n_cand, 4, 4))
-            for x_ in range(2):
-                for y_ in range(2):
-                    g[:, x_, y_] = unit_prod(mat, cols[x_], cols[y_])
-                    g[:, x_, 2 + y_] = mixed(ma[y_], cols[x_])
-                    g[:, 2 + y_, x_] = g[:, x_, 2 + y_]
-                    g[:, 2 + x_, 2 + y_] = np.einsum("bp,bp->b", ma[x_], avec[y_])
-            us.append(g)
-        umu, uhu = us
-        s_inv = np.zeros((n_cand, 4, 4))
-        s_inv[:, 0:2, 2:4] = np.eye(2)
-        s_inv[:, 2:4, 0:2] = np.eye(2)
-        s_inv[:, 2:4, 2:4] = -dm
-        kmat = s_inv + umu
-        det_k = np.linalg.det(kmat)
-        ok = np.abs(det_k) > 1e-8
-        safe = np.where(ok[:, None, None], kmat, np.eye(4))
-        trace = t0 - np.einsum("bii->b", np.linalg.solve(safe, uhu))
-        eff = np.where(ok, 1.0 / trace, 0.0)
-        if not ok.all():
-            bad = np.flatnonzero(~ok)
-            sub = [(c[bad], t[bad], sg) for c, t, sg in terms]
-            eff[bad] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, "A")[0]
-        return eff
-
-    def _updated(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, fir: bool) -> np.ndarray:
-        """Information matrices after adding sign * (trial's regressor) to a condition's column block,
-        for each (condition, trial, sign) term, one candidate per entry.
-
-        With A = X'd and D = d'd for the touched blocks: M' = (X + d)'(X + d) = M + A + A' + D, added
-        block by block. Candidates are grouped by the conditions they touch, so every addition is a
-        plain slice of the same columns.
+        Compiled (detection, or FIR with bins of one TR): the rank-2 update where it applies (one
+        regressor per condition, one duration group, A-criterion); then, per group of candidates
+        touching the same blocks, the shared Schur factor when there are at least SCHUR_MIN of them
+        and SCHUR_MIN_COLUMNS columns and the untouched part is regular, else a whole factorisation
+        each. numpy: the 4 x 4 Woodbury update where it applies, else whole matrices.
         """
-        nb, n_cand = part.nb, len(terms[0][0])
-        a = [xp[part.group[cond], trial] * sign for cond, trial, sign in terms]  # each (B, p, nb)
-        d = {
-            (t1, t2): s1 * s2 * self._cross(part, c1, c2, tr1, tr2, fir)
-            for t1, (c1, tr1, s1) in enumerate(terms)
-            for t2, (c2, tr2, s2) in enumerate(terms)
-        }
-        conds = np.stack([cond for cond, _, _ in terms], axis=1)  # (B, n_terms)
-        mm = np.broadcast_to(m, (n_cand,) + m.shape).copy()
-        keys, group = np.unique(conds, axis=0, return_inverse=True)
-        for g, key in enumerate(keys):
-            idx = np.flatnonzero(group.ravel() == g)
-            sub = mm[idx]
-            blocks = [slice(part.col[c], part.col[c] + nb) if part.col[c] >= 0 else None for c in key]
-            for t, blk in enumerate(blocks):
-                if blk is None:
+        x = part.design(codes[None])[0]
+        cur = Current(part, x.T @ x, np.ascontiguousarray(part.cross(x)), contrast, self.setup.criterion)
+        one_column = part.nb == 1 and self.setup.criterion == "A"
+        bins_of_one_tr = self.setup.fir_step <= self.setup.tr + 1e-9
+        out = np.full(len(cands), np.nan)
+        if self.compiled and (part is self.det or bins_of_one_tr):
+            products = self._products(part, omega=part is self.est)
+            if one_column and len(part.whitened) == 1:
+                rank2 = Rank2Update(cur, products).scores(cands)
+                out = out if rank2 is None else rank2
+            todo = np.flatnonzero(np.isnan(out))
+            rest, whole = cands.subset(todo), WholeUpdate(cur, products)
+            for idx, starts in block_groups(part, rest):
+                sub = rest.subset(idx)
+                if not starts:  # baseline trials only: the design does not change
+                    out[todo[idx]] = whole.scores(sub.subset(np.arange(1)))[0]
                     continue
-                sub[:, :, blk] += a[t][idx]
-                sub[:, blk, :] += np.swapaxes(a[t][idx], 1, 2)
-            for (t1, t2), dd in d.items():
-                if blocks[t1] is not None and blocks[t2] is not None:
-                    sub[:, blocks[t1], blocks[t2]] += dd[idx]
-            mm[idx] = sub
-        return mm
+                done = None
+                if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
+                    done = SchurUpdate(cur, products, starts).scores(sub)
+                out[todo[idx]] = whole.scores(sub) if done is None else done
+            return out
+        products = self._products(part, omega=fir and bins_of_one_tr)
+        if one_column:
+            woodbury = WoodburyUpdate(cur, products).scores(cands)
+            out = out if woodbury is None else woodbury
+        todo = np.flatnonzero(np.isnan(out))
+        if len(todo):
+            out[todo] = DenseUpdate(cur, products).scores(cands.subset(todo))
+        return out
 
-    def _cross(self, part: _Part, c1, c2, t1, t2, fir: bool) -> np.ndarray:
-        """Products of trial t1's regressor (group of c1) with trial t2's (group of c2): (B, nb, nb)."""
-        if fir and self.setup.fir_step <= self.setup.tr + 1e-9:
-            s1, s2 = self.fir_scan[t1], self.fir_scan[t2]  # (B, lags)
-            vals = self.omega[np.maximum(s1, 0)[:, :, None], np.maximum(s2, 0)[:, None, :]]
-            return vals * ((s1 >= 0)[:, :, None] & (s2 >= 0)[:, None, :])
-        if np.array_equal(t1, t2):
-            return part.own()[part.group[c1], part.group[c2], t1]
-        gram = part.gram()
-        return gram[part.group[c1], part.group[c2], t1, :, t2, :]
-
-
-def _regular_cholesky(m: np.ndarray) -> np.ndarray | None:
-    """Lower Cholesky factor of m, or None when m counts as singular (the RCOND rule)."""
-    try:
-        chol = np.linalg.cholesky(m)
-    except np.linalg.LinAlgError:
-        return None
-    if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
-        return None
-    return chol
-
-
-def _two_blocks(terms):
-    """Group (condition, trial, sign) terms into the two condition blocks they touch.
-
-    Changes: (new, +), (old, -); swaps: (c_j, +i), (c_j, -j), (c_i, +j), (c_i, -i).
-    """
-    if len(terms) == 2:
-        return [(terms[0][0], [(terms[0][1], terms[0][2])]), (terms[1][0], [(terms[1][1], terms[1][2])])]
-    return [
-        (terms[0][0], [(terms[0][1], terms[0][2]), (terms[1][1], terms[1][2])]),
-        (terms[2][0], [(terms[2][1], terms[2][2]), (terms[3][1], terms[3][2])]),
-    ]
+    def _products(self, part: _Part, omega: bool) -> TrialProducts:
+        """Trial products from the part's Gram matrices, or (omega) from Omega at the FIR volumes."""
+        if omega:
+            return TrialProducts(part, self.fir_scan, lambda: self.omega)
+        return TrialProducts(part)

@@ -13,7 +13,7 @@ import numpy as np
 from numba import njit, types
 from numba.extending import intrinsic
 
-#: the same singularity rule as fast.RCOND
+#: the same singularity rule as algebra.RCOND
 RCOND = 1e-10
 
 #: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf

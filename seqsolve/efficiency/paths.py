@@ -16,6 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from seqsolve.efficiency.algebra import batch_efficiency
+
 
 def kernels():
     """kernels.py, imported when a kernel is first needed: importing numba and loading the cached
@@ -176,6 +178,4 @@ class MatrixScores:
     criterion: str
 
     def scores(self, codes: np.ndarray) -> np.ndarray:
-        from seqsolve.efficiency.fast import batch_efficiency
-
         return batch_efficiency(self.information(codes), self.contrast, self.criterion)[0]

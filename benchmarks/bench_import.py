@@ -33,11 +33,11 @@ def wall(args: list[str], repeats: int) -> float:
     """Median seconds of `python args` in fresh processes (our tree first on the path)."""
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]))
     cmd = [sys.executable, *args]
-    subprocess.run(cmd, env=env, check=True, capture_output=True)  # warm-up: caches filled
+    subprocess.run(cmd, env=env, cwd=ROOT, check=True, capture_output=True)  # warm-up: caches filled
     times = []
     for _ in range(repeats):
         t0 = time.perf_counter()
-        subprocess.run(cmd, env=env, check=True, capture_output=True)
+        subprocess.run(cmd, env=env, cwd=ROOT, check=True, capture_output=True)
         times.append(time.perf_counter() - t0)
     return statistics.median(times)
 

@@ -207,7 +207,7 @@ def test_sparse_per_run_construction_equals_the_dense_one(case, circular):
     # all trials' products, summed by label, give the information again: Z' G Z = X'X
     for part, x in ((ev.det, xd), (ev.est, xe)):
         n, nb = part.n_trials, part.nb
-        z = sum(part._labels(codes, g).toarray() for g in range(len(part.whitened)))
+        z = sum(part._labels(codes, g) for g in range(len(part.whitened)))
         if len(part.whitened) == 1:
             gram = part.gram()[0, 0].reshape(n * nb, n * nb)
             assert close(z.T @ gram @ z, x.T @ x)

@@ -127,14 +127,15 @@ class _Part:
         self._gram: np.ndarray | None = None
         self._own: np.ndarray | None = None
 
-    def _labels(self, codes: np.ndarray, g: int) -> sparse.csr_matrix:
-        """Z of group g for one ordering: (N * nb, p), trial i's basis b to its condition's column b."""
+    def _labels(self, codes: np.ndarray, g: int) -> np.ndarray:
+        """Z of group g for one ordering: (N * nb, p) 0/1, trial i's basis b to its condition's
+        column b (dense: a sparse product with a dense Z costs less than building a sparse Z)."""
         c = np.asarray(codes)
-        keep = (self.col[c] >= 0) & (self.group[c] == g)
-        t = np.flatnonzero(keep)
-        rows = (t[:, None] * self.nb + np.arange(self.nb)).ravel()
-        cols = (self.col[c[t]][:, None] + np.arange(self.nb)).ravel()
-        return sparse.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(self.n_trials * self.nb, self.p))
+        t = np.flatnonzero((self.col[c] >= 0) & (self.group[c] == g))
+        z = np.zeros((self.n_trials * self.nb, self.p))
+        for b in range(self.nb):
+            z[t * self.nb + b, self.col[c[t]] + b] = 1.0
+        return z
 
     def design(self, codes: np.ndarray) -> np.ndarray:
         """X for labels codes (B, N): shape (B, n_scans, p), columns (condition, basis)."""
@@ -143,7 +144,7 @@ class _Part:
         for k, row in enumerate(codes):
             y = np.zeros(x.shape[1:])
             for g, w in enumerate(self.whitened):
-                y += (w @ self._labels(row, g)).toarray()
+                y += w @ self._labels(row, g)
             x[k] = y - self.q @ (self.q.T @ y)
         return x
 
@@ -487,7 +488,7 @@ class Evaluator:
         new = np.tile(np.arange(self.k), len(trials))
         terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
         moves = (new, codes[trial], trial, np.full(len(trial), -1))
-        cands = Candidates.of(terms, moves)
+        cands = Candidates(terms, moves)
         return self._neighbour_scores(part, codes, cands, contrast, fir=False).reshape(len(trials), self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
@@ -497,7 +498,7 @@ class Evaluator:
         i, j = pairs[:, 0], pairs[:, 1]
         ci, cj = codes[i], codes[j]
         terms = [(cj, i, 1.0), (cj, j, -1.0), (ci, j, 1.0), (ci, i, -1.0)]
-        return self._neighbour_scores(part, codes, Candidates.of(terms, (cj, ci, i, j)), contrast, fir)
+        return self._neighbour_scores(part, codes, Candidates(terms, (cj, ci, i, j)), contrast, fir)
 
     def _neighbour_scores(
         self, part: _Part, codes: np.ndarray, cands: Candidates, contrast: np.ndarray, fir: bool
@@ -522,6 +523,8 @@ class Evaluator:
                 rank2 = Rank2Update(cur, products).scores(cands)
                 out = out if rank2 is None else rank2
             todo = np.flatnonzero(np.isnan(out))
+            if len(todo) == 0:
+                return out
             rest, whole = cands.subset(todo), WholeUpdate(cur, products)
             for idx, starts in block_groups(part, rest):
                 sub = rest.subset(idx)

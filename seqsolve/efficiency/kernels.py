@@ -280,9 +280,12 @@ def fir_bit_scores(codes, col, fscan, qf, qoff, rank, n_words, dw, dmask, ow, om
             for lag in range(lags):
                 sc = fscan[t, lag]
                 bits[c + lag, sc >> 6] |= one << np.uint64(sc & 63)
-                first = qoff[t]
+                # a slice, so that the inner index is a plain range (no wrap-round test per
+                # element, which kept LLVM from vectorising the loop: 2.4x slower, measured)
+                dst = y[c + lag, qoff[t] : qoff[t] + width]
+                src = qf[t, lag]
                 for a in range(width):
-                    y[c + lag, first + a] += qf[t, lag, a]
+                    dst[a] += src[a]
         if no:
             for j in range(p):
                 for w in range(n_words):

@@ -16,6 +16,7 @@ candidates its own way; Evaluator._neighbour_scores (fast.py) is the one place t
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -27,32 +28,34 @@ from seqsolve.efficiency.paths import kernels, prepare_contrast
 
 @dataclass(frozen=True)
 class Candidates:
-    """Candidate designs as terms: term a of candidate k adds signs[a] x (trial trials[k, a]'s
-    regressor) to condition conds[k, a]'s column block; moves: the same candidates as (gaining
-    condition, losing condition, trial, trial taken away or -1), each (n,)."""
+    """Candidate designs as terms: per term a, (condition (n,), trial (n,), sign): candidate k adds
+    sign x (trial[k]'s regressor) to condition[k]'s column block; moves: the same candidates as
+    (gaining condition, losing condition, trial, trial taken away or -1), each (n,). The stacked
+    arrays the kernels take are built only when a path asks (the rank-2 path reads moves only)."""
 
-    conds: np.ndarray  # (n, n_terms) int64
-    trials: np.ndarray  # (n, n_terms) int64
-    signs: np.ndarray  # (n_terms,)
+    terms: list[tuple[np.ndarray, np.ndarray, float]]
     moves: tuple[np.ndarray, ...]
 
-    @classmethod
-    def of(cls, terms: list[tuple[np.ndarray, np.ndarray, float]], moves: tuple) -> Candidates:
-        conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
-        trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
-        signs = np.array([sg for _, _, sg in terms], dtype=float)
-        return cls(conds, trials, signs, tuple(np.ascontiguousarray(v, dtype=np.int64) for v in moves))
-
     def __len__(self) -> int:
-        return len(self.conds)
+        return len(self.terms[0][0])
 
-    def subset(self, idx: np.ndarray) -> Candidates:
-        return Candidates(self.conds[idx], self.trials[idx], self.signs, tuple(v[idx] for v in self.moves))
+    def subset(self, idx) -> Candidates:
+        return Candidates([(c[idx], t[idx], sg) for c, t, sg in self.terms], tuple(v[idx] for v in self.moves))
+
+    @cached_property
+    def conds(self) -> np.ndarray:
+        """(n, n_terms) int64."""
+        return np.ascontiguousarray(np.stack([c for c, _, _ in self.terms], axis=1), dtype=np.int64)
+
+    @cached_property
+    def trials(self) -> np.ndarray:
+        """(n, n_terms) int64."""
+        return np.ascontiguousarray(np.stack([t for _, t, _ in self.terms], axis=1), dtype=np.int64)
 
     @property
-    def terms(self) -> list[tuple[np.ndarray, np.ndarray, float]]:
-        """Per term: (condition (n,), trial (n,), sign)."""
-        return [(self.conds[:, a], self.trials[:, a], float(s)) for a, s in enumerate(self.signs)]
+    def signs(self) -> np.ndarray:
+        """(n_terms,)."""
+        return np.array([sg for _, _, sg in self.terms], dtype=float)
 
 
 @dataclass(frozen=True)
@@ -112,7 +115,7 @@ class Rank2Update:
         cm = cur.contrast @ minv
         h = cm.T @ cm
         x1 = np.ascontiguousarray(cur.xp[0, :, :, 0])
-        gains, loses, t1, t2 = cands.moves
+        gains, loses, t1, t2 = (np.ascontiguousarray(v, dtype=np.int64) for v in cands.moves)
         return kernels().rank2_scores(
             minv,
             h,

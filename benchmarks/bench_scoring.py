@@ -44,7 +44,12 @@ def make(n_trials: int):
 
 
 def rate(fn, count: int, min_time: float) -> float:
-    """Items per second of fn() scoring `count` items, repeated until min_time has passed."""
+    """Items per second of fn() scoring `count` items, repeated until min_time has passed.
+
+    One untimed call first: the first call of a compiled kernel loads (or, on a new machine or
+    numba version, compiles) its machine code, seconds that once made a single timed call of
+    "fast, one" print 0 items/s."""
+    fn()
     reps, t0 = 0, time.perf_counter()
     while True:
         fn()

@@ -49,6 +49,18 @@ def test_double_gamma_landmarks():
     assert h.sum() * 0.1 == pytest.approx(1.0, abs=2e-3)  # the 32 s kernel cuts a sliver of the tail
 
 
+def test_gamma_density_equals_scipy_stats():
+    # hrf.gamma_pdf writes out the density so that scipy.stats need not be imported; scipy's own
+    # scipy.stats.gamma.pdf is the judge (shape 6 and 16, unit scale: the canonical HRF's two parts)
+    from scipy import stats
+
+    from seqsolve.efficiency.hrf import gamma_pdf
+
+    t = np.concatenate([[-1.0, 0.0, 1e-12], np.arange(0.05, 60.0, 0.05)])
+    for shape in (1.0, 6.0, 16.0):
+        assert np.allclose(gamma_pdf(t, shape), stats.gamma.pdf(t, shape), rtol=1e-12, atol=1e-300)
+
+
 def test_matches_nilearn_spm_hrf_up_to_its_rounded_ratio():
     from nilearn.glm.first_level import spm_hrf
 
@@ -101,6 +113,48 @@ def test_detection_agrees_with_nilearn_design_matrix_on_our_events_file(tmp_path
     ours = Evaluator(setup, layout, 3).score(np.concatenate(runs))[0]
     # both scale the response so a sustained block reaches 1 (nilearn: kernel sums to 1 on its grid)
     assert ours == pytest.approx(theirs, rel=5e-3)
+
+
+def test_runs_agree_with_nilearn_design_matrices_stacked_run_by_run():
+    # several runs: nilearn builds one design matrix per run (its own intercept and cosine drifts);
+    # the study's model is those matrices stacked block-diagonally in the nuisance columns, which
+    # our evaluator reproduces from its per-run nuisance bases
+    from nilearn.glm.first_level import make_first_level_design_matrix
+    from scipy.linalg import block_diag
+
+    study = make_study(
+        [12, 12, 12],
+        baseline=2,
+        runs=3,
+        timing={"tr": 2.0, "soa": 4.0, "lead_out": 16.0},
+        durations=[2.0, 2.0, 2.0],
+        analysis={"contrasts": ["a - b", "a + b"], "high_pass_cutoff": 64.0},
+    )
+    rng = np.random.default_rng(5)
+    runs = [rng.permutation(np.repeat([0, 1, 2], 12)) for _ in range(3)]
+    scheds = make_schedules(study, runs, 0)
+    tasks, drifts = [], []
+    for sched in scheds:
+        onsets = np.asarray(sched.onsets)
+        keep = np.asarray(sched.codes) != 2
+        events = pd.DataFrame(
+            {"onset": onsets[keep], "duration": 2.0, "trial_type": np.array(["a", "b"])[np.asarray(sched.codes)[keep]]}
+        )
+        frames = np.arange(sched.n_volumes) * 2.0
+        dm = make_first_level_design_matrix(frames, events, hrf_model="spm", drift_model="cosine", high_pass=1 / 64)
+        tasks.append(dm[["a", "b"]].to_numpy())
+        drifts.append(dm.drop(columns=["a", "b"]).to_numpy())
+    x = np.hstack([np.vstack(tasks), block_diag(*drifts)])
+    cov = np.linalg.inv(x.T @ x)[:2, :2]
+    c = np.array([[1.0, -1.0], [1.0, 1.0]])
+    theirs = 1 / np.trace(c @ cov @ c.T)
+    setup = make_setup(study)
+    layout = make_layout(setup, [s.onsets for s in scheds], [s.n_volumes for s in scheds], trial_durations(study))
+    codes = np.concatenate(runs)
+    ours = Evaluator(setup, layout, 3).score(codes)[0]
+    # nilearn's HRF differs from ours by its rounded undershoot ratio (see above): 5e-3 as there
+    assert ours == pytest.approx(theirs, rel=5e-3)
+    assert ours == pytest.approx(reference_scores(setup, layout, codes)[0], rel=1e-9)
 
 
 # --- m-sequences ---

@@ -121,7 +121,9 @@ def test_cases_cover_every_compiled_estimation_kernel():
     for case in CASES:
         study, setup, layout, _, _ = build(case)
         ev = Evaluator(setup, layout, study.facts.n_conditions)
-        kind = "bits" if ev.fir_bits is not None else "hits" if ev.fir_kernel is not None else "numpy"
+        kind = {"FirBitsEstimation": "bits", "FirHitsEstimation": "hits", "MatrixScores": "numpy"}[
+            type(ev.full_estimation).__name__
+        ]
         kinds.setdefault(kind, []).append(case)
     assert set(kinds) == {"bits", "hits", "numpy"}, kinds
     assert "two runs, drift, ar1" in kinds["bits"]  # AR(1) weights through the masks
@@ -146,7 +148,7 @@ def test_circular_presentation_matches_reference(compiled):
     study, setup, layout, codes, rng = build("plain")
     ev = Evaluator(setup, layout, study.facts.n_conditions, circular=True, compiled=compiled)
     if compiled:  # responses wrap round the run: some overlapping trials lie far apart in the list
-        assert len(ev.band[1]) > 0
+        assert len(ev.full_detection.far_i) > 0
     designs = np.array([codes] + [rng.permutation(codes) for _ in range(3)])
     det, est = ev.score_many(designs)
     for d, a, b in zip(designs, det, est):
@@ -167,3 +169,92 @@ def test_singular_design_scores_zero_not_garbage():
         assert np.isfinite(det)
         nb = Evaluator(setup, layout, 2, compiled=compiled).neighbours(codes)
         assert np.isfinite(nb.swap_estimation).all() and (nb.swap_estimation >= 0).all()
+
+
+def dense_filtered(setup, layout, x, circular=False):
+    """The dense construction the evaluator used to make (and the reference still does): the
+    whole-model nuisance basis by one SVD, prewhitening of dense columns, projection."""
+    from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
+
+    q = residual_basis(
+        whiten(
+            block_nuisance(layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree),
+            setup.ar1,
+            layout.run_lengths,
+        )
+    )
+    xw = whiten(x, setup.ar1, layout.run_lengths)
+    return xw - q @ (q.T @ xw), q
+
+
+@pytest.mark.parametrize("circular", [False, True], ids=["once", "circular"])
+@pytest.mark.parametrize("case", list(CASES))
+def test_sparse_per_run_construction_equals_the_dense_one(case, circular):
+    # the evaluator keeps W R sparse and the nuisance basis per run; the dense whole-model
+    # construction (reference.py's design matrices, filtered) must give the same matrices
+    from seqsolve.efficiency.nuisance import whiten
+    from seqsolve.efficiency.reference import detection_matrix, fir_matrix
+
+    study, setup, layout, codes, rng = build(case, seed=3)
+    ev = Evaluator(setup, layout, study.facts.n_conditions, circular=circular, compiled=False)
+    xd, q = dense_filtered(setup, layout, detection_matrix(setup, layout, codes, circular))
+    xe, _ = dense_filtered(setup, layout, fir_matrix(setup, layout, codes, circular))
+    assert np.allclose(ev.q @ ev.q.T, q @ q.T, rtol=0, atol=1e-12)  # the same nuisance space
+    assert np.allclose(ev.det.design(codes[None])[0], xd, rtol=1e-9, atol=1e-12)
+    assert np.allclose(ev.est.design(codes[None])[0], xe, rtol=1e-9, atol=1e-12)
+    md, me = ev.information(codes)
+    assert close(md, xd.T @ xd) and close(me, xe.T @ xe)
+    # all trials' products, summed by label, give the information again: Z' G Z = X'X
+    for part, x in ((ev.det, xd), (ev.est, xe)):
+        n, nb = part.n_trials, part.nb
+        z = sum(part._labels(codes, g) for g in range(len(part.whitened)))
+        if len(part.whitened) == 1:
+            gram = part.gram()[0, 0].reshape(n * nb, n * nb)
+            assert close(z.T @ gram @ z, x.T @ x)
+            own = part.own()[0, 0]
+            assert close(own, np.einsum("ibic->ibc", part.gram()[0, 0]))
+    # Omega = W'(I - QQ')W, once built from dense matrices over all volumes
+    eye = whiten(np.eye(layout.n_scans), setup.ar1, layout.run_lengths)
+    rw = eye - q @ (q.T @ eye)
+    assert np.allclose(ev.omega, rw.T @ rw, rtol=0, atol=1e-12)
+
+
+def test_memory_of_an_evaluator_grows_linearly_with_the_trials():
+    # no volumes x trials dense object is kept: bytes held per trial stay put as runs grow 4-fold
+    # (counted from the evaluator's arrays, not timed; the products only neighbour scores read are
+    # built on demand). Without a high-pass filter: its cosines add columns to Q as runs grow, so
+    # Q (volumes x cosines) itself grows faster than the trials. The dense construction held
+    # 35 kB per trial at 60 trials a condition and 139 kB at 240 (measured when it was replaced).
+    def held(n):
+        study = make_study(
+            [n, n, n], baseline=2, runs=2, timing={"tr": 2.0, "soa": 2.0}, analysis={"high_pass_cutoff": 0}
+        )
+        setup = make_setup(study)
+        runs = [np.tile([0, 1, 2], n) for _ in range(2)]
+        sched = make_schedules(study, runs, 0)
+        layout = make_layout(setup, [s.onsets for s in sched], [s.n_volumes for s in sched], trial_durations(study))
+        ev = Evaluator(setup, layout, 3)
+        return sum(v.nbytes for v in _arrays(ev)) / layout.n_trials
+
+    small, large = held(60), held(240)
+    assert large < 1.1 * small, (small, large)
+
+
+def _arrays(obj, seen=None):
+    """Every numpy array and sparse matrix reachable from obj's attributes (tuples, lists, parts)."""
+    from scipy import sparse
+
+    seen = set() if seen is None else seen
+    if id(obj) in seen:
+        return
+    seen.add(id(obj))
+    if isinstance(obj, np.ndarray):
+        yield obj
+    elif sparse.issparse(obj):
+        yield from (obj.data, obj.indices, obj.indptr)
+    elif isinstance(obj, (tuple, list)):
+        for v in obj:
+            yield from _arrays(v, seen)
+    elif hasattr(obj, "__dict__") and type(obj).__module__.startswith("seqsolve"):
+        for v in vars(obj).values():
+            yield from _arrays(v, seen)

@@ -2,8 +2,10 @@
 
 hrf.py: response shapes. nuisance.py: intercepts, drifts, prewhitening. contrasts.py: our own
 contrast parser. reference.py: the straightforward design-matrix computation (kept as the judge
-of the fast paths). fast.py: batched and incremental evaluators. metrics.py: the figures of merit
-and the report of one schedule. limits.py: upper bounds no design can pass.
+of the fast paths). regressors.py: each trial's sparse regressors. fast.py: the Evaluator, which
+chooses among the named scoring paths of paths.py (full scores) and neighbours.py (single changes
+and swaps); algebra.py: their shared linear algebra. metrics.py: the figures of merit and the
+report of one schedule. limits.py: upper bounds no design can pass.
 """
 
 from seqsolve.efficiency.contrasts import parse_contrast

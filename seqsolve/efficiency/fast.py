@@ -15,72 +15,42 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import sparse
-from scipy.linalg import solve_triangular
-from threadpoolctl import ThreadpoolController
 
-from seqsolve.efficiency import kernels
-from seqsolve.efficiency.grid import Layout, fir_bins
-from seqsolve.efficiency.nuisance import block_nuisance, residual_basis, whiten
+from seqsolve.efficiency.algebra import batch_efficiency, one_blas_thread
+from seqsolve.efficiency.grid import Layout
+from seqsolve.efficiency.neighbours import (
+    Candidates,
+    Current,
+    DenseUpdate,
+    Rank2Update,
+    SchurUpdate,
+    TrialProducts,
+    WholeUpdate,
+    WoodburyUpdate,
+    block_groups,
+)
+from seqsolve.efficiency.nuisance import run_bases, whiten, whitening_matrix
+from seqsolve.efficiency.paths import (
+    BandDetection,
+    FirBitsEstimation,
+    FirHitsEstimation,
+    KernelContrast,
+    MatrixScores,
+)
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix
+from seqsolve.efficiency.regressors import fir_hits, fir_regressors, trial_responses
 from seqsolve.efficiency.setup import AnalysisSetup
-
-#: information matrices with a smaller reciprocal condition number count as singular
-RCOND = 1e-10
 
 #: fewest candidates touching the same blocks for which the shared factorisation pays (measured)
 SCHUR_MIN = 64
 #: and fewest columns (below it one whole small factorisation per candidate is cheaper, measured)
 SCHUR_MIN_COLUMNS = 12
 
-_THREADPOOLS: ThreadpoolController | None = None
-
-
-def one_blas_thread():
-    """Context pinning BLAS to one thread: on small, many products a threaded BLAS is far slower
-    under load (measured), and processes, not threads, are how seqsolve uses both cores."""
-    global _THREADPOOLS
-    if _THREADPOOLS is None:
-        _THREADPOOLS = ThreadpoolController()  # finding the libraries is the slow part: once
-    return _THREADPOOLS.limit(limits=1)
-
-
-def batch_efficiency(m: np.ndarray, contrast: np.ndarray, criterion: str = "A") -> tuple[np.ndarray, np.ndarray]:
-    """Efficiency of each information matrix in m (B, p, p) for contrast (q, p).
-
-    Returns (efficiency (B,), singular (B,) bool); singular designs get efficiency 0. A matrix is
-    singular when a Cholesky pivot squared falls below RCOND times its diagonal entry (or the
-    factorisation fails, in which case eigenvalues decide for the whole batch).
-    """
-    m = np.asarray(m, dtype=float)
-    try:
-        chol = np.linalg.cholesky(m)
-        pivots = np.diagonal(chol, axis1=1, axis2=2) ** 2
-        singular = (pivots <= RCOND * np.maximum(np.diagonal(m, axis1=1, axis2=2), 1e-300)).any(axis=1)
-    except np.linalg.LinAlgError:
-        eig = np.linalg.eigvalsh(m)
-        singular = eig[:, 0] <= RCOND * np.maximum(eig[:, -1], 1e-300)
-        m = np.where(singular[:, None, None], np.eye(m.shape[1]), m)
-        chol = np.linalg.cholesky(m)
-    chol = np.where(singular[:, None, None], np.eye(m.shape[1]), chol)
-    rhs = np.broadcast_to(contrast.T, (m.shape[0],) + contrast.T.shape)
-    # L^-1 C': scipy's triangular solve loops in Python per matrix, numpy's general solve in C;
-    # the first wins for large matrices, the second for small ones (measured)
-    if m.shape[1] > 16:
-        half = solve_triangular(chol, rhs, lower=True, check_finite=False)
-    else:
-        half = np.linalg.solve(chol, rhs)
-    if criterion == "D":
-        sign, logdet = np.linalg.slogdet(np.swapaxes(half, 1, 2) @ half)
-        eff = np.where(sign > 0, np.exp(-logdet / contrast.shape[0]), 0.0)
-    else:
-        eff = 1.0 / np.einsum("bij,bij->b", half, half)
-    return np.where(singular, 0.0, eff), singular
-
 
 def nuisance_basis(setup: AnalysisSetup, run_lengths: list[int]) -> np.ndarray:
-    """Orthonormal basis Q of the prewhitened nuisance space (intercepts, drifts) of these runs."""
-    nuis = block_nuisance(run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree)
-    return residual_basis(whiten(nuis, setup.ar1, run_lengths))
+    """Orthonormal basis Q (n_scans, rank) of the prewhitened nuisance space (intercepts, drifts)
+    of these runs, in run blocks (nuisance.run_bases)."""
+    return run_bases(run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree, setup.ar1)[0]
 
 
 class DirectScorer:
@@ -130,33 +100,92 @@ class Neighbours:
 
 
 class _Part:
-    """One analysis (detection or estimation): filtered trial regressors per duration group."""
+    """One analysis (detection or estimation): each trial's whitened, unfiltered regressors per
+    duration group, sparse, and the nuisance basis Q they are filtered against. The filtered
+    regressors P = (I - QQ')WR are dense volumes x trials (memory growing with N^2), so they are
+    never formed: X = P Z is built as (I - QQ')(WR Z), and X'P as X'WR (X is already filtered)."""
 
-    def __init__(self, regs: list[np.ndarray], group: np.ndarray, modelled: tuple[int, ...], n_conditions: int):
-        self.regs = regs  # per group: (n_scans, n_trials, n_basis)
+    def __init__(
+        self,
+        whitened: list[sparse.csc_matrix],
+        q: np.ndarray,
+        group: np.ndarray,
+        modelled: tuple[int, ...],
+        n_conditions: int,
+        nb: int,
+    ):
+        self.whitened = whitened  # per group: W R, sparse (n_scans, N * nb), column i * nb + b
+        self.q = q  # (n_scans, rank)
         self.group = group  # per condition: its group
-        self.nb = regs[0].shape[2]
+        self.nb = nb
+        self.n_trials = whitened[0].shape[1] // nb
         self.col = np.full(n_conditions, -1)  # first column of each modelled condition
         for i, c in enumerate(modelled):
-            self.col[c] = i * self.nb
-        self.p = len(modelled) * self.nb
+            self.col[c] = i * nb
+        self.p = len(modelled) * nb
         self.modelled = modelled
+        self._gram: np.ndarray | None = None
+        self._own: np.ndarray | None = None
+
+    def _labels(self, codes: np.ndarray, g: int) -> np.ndarray:
+        """Z of group g for one ordering: (N * nb, p) 0/1, trial i's basis b to its condition's
+        column b (dense: a sparse product with a dense Z costs less than building a sparse Z)."""
+        c = np.asarray(codes)
+        t = np.flatnonzero((self.col[c] >= 0) & (self.group[c] == g))
+        z = np.zeros((self.n_trials * self.nb, self.p))
+        for b in range(self.nb):
+            z[t * self.nb + b, self.col[c[t]] + b] = 1.0
+        return z
 
     def design(self, codes: np.ndarray) -> np.ndarray:
         """X for labels codes (B, N): shape (B, n_scans, p), columns (condition, basis)."""
-        b = codes.shape[0]
-        n, n_trials = self.regs[0].shape[:2]
-        x = np.empty((b, n, len(self.modelled), self.nb))
-        for g, reg in enumerate(self.regs):
-            conds = [c for c in self.modelled if self.group[c] == g]
-            if not conds:
-                continue
-            masks = (codes[:, None, :] == np.array(conds)[None, :, None]).astype(float)  # (B, C, N)
-            flat = reg.transpose(1, 0, 2).reshape(n_trials, n * self.nb)  # (N, n * nb)
-            xg = (masks.reshape(-1, n_trials) @ flat).reshape(b, len(conds), n, self.nb)
-            for k, c in enumerate(conds):
-                x[:, :, self.col[c] // self.nb, :] = xg[:, k]
-        return x.reshape(b, n, self.p)
+        codes = np.atleast_2d(codes)
+        x = np.empty((codes.shape[0], self.whitened[0].shape[0], self.p))
+        for k, row in enumerate(codes):
+            y = np.zeros(x.shape[1:])
+            for g, w in enumerate(self.whitened):
+                y += w @ self._labels(row, g)
+            x[k] = y - self.q @ (self.q.T @ y)
+        return x
+
+    def cross(self, x: np.ndarray) -> np.ndarray:
+        """X' times each trial's filtered regressor, per group, from a filtered X (n_scans, p):
+        (G, N, p, nb)."""
+        return np.stack(
+            [np.asarray(w.T @ x).reshape(self.n_trials, self.nb, self.p).transpose(0, 2, 1) for w in self.whitened]
+        )
+
+    def _projected(self) -> list[np.ndarray]:
+        """Q'WR per group, each (rank, N * nb)."""
+        return [np.asarray((w.T @ self.q).T) for w in self.whitened]
+
+    def gram(self) -> np.ndarray:
+        """All trials' filtered regressor products between groups, (G, G, N, nb, N, nb): dense,
+        built on first use (the neighbour scores read it): WR'WR - (Q'WR)'(Q'WR)."""
+        if self._gram is None:
+            proj, n, nb = self._projected(), self.n_trials, self.nb
+            self._gram = np.array(
+                [
+                    [((a.T @ b).toarray() - pa.T @ pb).reshape(n, nb, n, nb) for b, pb in zip(self.whitened, proj)]
+                    for a, pa in zip(self.whitened, proj)
+                ]
+            )
+        return self._gram
+
+    def own(self) -> np.ndarray:
+        """Each trial's filtered regressor products between groups, (G, G, N, nb, nb)."""
+        if self._own is None:
+            proj, n, nb = self._projected(), self.n_trials, self.nb
+            groups = len(self.whitened)
+            out = np.empty((groups, groups, n, nb, nb))
+            for g, (a, pa) in enumerate(zip(self.whitened, proj)):
+                for h, (b, pb) in enumerate(zip(self.whitened, proj)):
+                    for i in range(nb):
+                        for j in range(nb):
+                            raw = np.asarray(a[:, i::nb].multiply(b[:, j::nb]).sum(axis=0)).ravel()
+                            out[g, h, :, i, j] = raw - np.einsum("rn,rn->n", pa[:, i::nb], pb[:, j::nb])
+            self._own = out
+        return self._own
 
 
 class Evaluator:
@@ -170,6 +199,9 @@ class Evaluator:
     circular : treat each run as presented periodically (the response wraps round).
     compiled : use the numba kernels of kernels.py where they apply (same results; False keeps
         to the numpy paths, which the tests also check).
+
+    Memory is linear in the number of trials until neighbour scores are asked for (those read
+    all trials' products, `_Part.gram` and `omega`, built then).
     """
 
     def __init__(
@@ -179,57 +211,43 @@ class Evaluator:
         self.circular = circular
         self.compiled = compiled
         with one_blas_thread():
-            self.q = nuisance_basis(setup, layout.run_lengths)
+            self.q, self.q_starts = run_bases(
+                layout.run_lengths, setup.tr, setup.high_pass_cutoff, setup.drift_degree, setup.ar1
+            )
+            self.w = whitening_matrix(setup.ar1, layout.run_lengths)
             self.det = self._detection_part()
+            self.hits = fir_hits(setup, layout, circular)
             self.fir_scan = self._fir_scans()  # (N, lags): volume index of each trial's lag, -1 outside
             lagged = self.fir_scan * setup.fir_lags + np.arange(setup.fir_lags)
             lagged = lagged[self.fir_scan >= 0]
             self.fir_unique = len(np.unique(lagged)) == len(lagged)
+            fir = self._whiten(fir_regressors(setup, layout, self.hits))
             self.est = _Part(
-                [self._filter(self._fir_raw())], np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions
+                [fir], self.q, np.zeros(n_conditions, dtype=int), setup.modelled, n_conditions, setup.fir_lags
             )
-            self.omega = self._omega()
+        self._omega: np.ndarray | None = None
         self.c_det = setup.detection_contrast()
         self.c_est = setup.estimation_contrast()
-        self.k_det = kernels.prepare_contrast(self.c_det)
-        self.k_est = kernels.prepare_contrast(self.c_est)
-        self.band = self._band() if compiled else None
+        self.full_detection, self.full_estimation = self._full_paths()
 
-    # -- building the filtered trial regressors ------------------------------------------------
+    def _full_paths(self) -> tuple:
+        """The one place that chooses how full scores are computed (paths.py): the compiled
+        kernels where they apply, else information matrices built whole (numpy)."""
+        crit = self.setup.criterion
+        det = MatrixScores(self._detection_information, self.c_det, crit)
+        est = MatrixScores(self._fir_information, self.c_est, crit)
+        if self.compiled:
+            det = self._band(KernelContrast.of(self.c_det, crit))
+            if self.setup.fir_step <= self.setup.tr + 1e-9:  # one volume per FIR bin
+                est = self._fir_path(KernelContrast.of(self.c_est, crit))
+        return det, est
 
-    def _filter(self, raw: np.ndarray) -> np.ndarray:
-        """Prewhiten and remove the nuisance space: (n_scans, N, nb) -> same shape."""
-        n, t, nb = raw.shape
-        w = whiten(raw.reshape(n, t * nb), self.setup.ar1, self.layout.run_lengths)
-        w -= self.q @ (self.q.T @ w)
-        return w.reshape(n, t, nb)
+    # -- building the trial regressors ----------------------------------------------------------
 
-    def _responses(self, box_len: int) -> np.ndarray:
-        """Unfiltered response of every trial to a boxcar of box_len samples: (n_scans, N, n_basis)."""
-        lay, res = self.layout, self.setup.resolution
-        steps = np.cumsum(self.setup.kernels, axis=1) * res  # step responses
-        kl = steps.shape[1]
-
-        def step_at(j):
-            j = np.asarray(j)
-            inside = np.clip(j, 0, kl - 1)
-            return np.where(j[None] < 0, 0.0, steps[:, inside])
-
-        out = np.zeros((lay.n_scans, lay.n_trials, steps.shape[0]))
-        row = 0
-        for r, scans in enumerate(lay.scan_idx):
-            trials = np.flatnonzero(lay.run_of == r)
-            d = scans[:, None] - lay.onset_idx[None, trials]  # (n_r, N_r)
-            if self.circular:
-                d = d % lay.run_fine[r]
-                wraps = int(np.ceil((kl + box_len) / lay.run_fine[r])) + 1
-                resp = sum(
-                    step_at(d + m * lay.run_fine[r]) - step_at(d + m * lay.run_fine[r] - box_len) for m in range(wraps)
-                )
-            else:
-                resp = step_at(d) - step_at(d - box_len)
-            out[row : row + len(scans)][:, trials, :] = np.moveaxis(resp, 0, -1)
-            row += len(scans)
+    def _whiten(self, raw: sparse.csc_matrix) -> sparse.csc_matrix:
+        """W raw, sparse (the AR(1) filter is bidiagonal), without stored zeros."""
+        out = (self.w @ raw).tocsc()
+        out.eliminate_zeros()
         return out
 
     def _duration_groups(self) -> tuple[list[int], np.ndarray]:
@@ -244,24 +262,22 @@ class Evaluator:
 
     def _detection_part(self) -> _Part:
         groups, group = self._duration_groups()
-        regs = [self._filter(self._responses(L)) for L in groups]
-        return _Part(regs, group, self.setup.modelled, self.k)
+        regs = [self._whiten(trial_responses(self.setup, self.layout, length, self.circular)) for length in groups]
+        return _Part(regs, self.q, group, self.setup.modelled, self.k, self.setup.n_basis)
 
-    def _band(self) -> tuple[np.ndarray, ...]:
+    def _band(self, contrast: KernelContrast) -> BandDetection:
         """What kernels.band_scores needs: the products of trials whose whitened responses overlap,
         by diagonal (trial i with trial i + d) and, for pairs far apart in a circular run, as a
         list; and the responses' products with Q."""
         nb = self.det.nb
-        lens, _ = self._duration_groups()
-        raw = [whiten(self._responses(L), self.setup.ar1, self.layout.run_lengths) for L in lens]
-        n, n_trials = raw[0].shape[:2]
-        flat = [sparse.csc_matrix(r.reshape(n, n_trials * nb)) for r in raw]
+        flat = self.det.whitened
+        n_trials = self.layout.n_trials
         prods = [[(a.T @ b).tocoo() for b in flat] for a in flat]  # exact zeros where no overlap
         gap = np.concatenate([pr.col // nb - pr.row // nb for row in prods for pr in row])
         gap = gap[gap >= 0]
         near = gap <= n_trials // 2 if self.circular else np.ones(gap.shape, dtype=bool)
         width = int(gap[near].max()) + 1 if near.any() else 1
-        groups = len(lens)
+        groups = len(flat)
         band = np.zeros((width, n_trials, groups, groups, nb, nb))
         far_keys = np.unique(
             np.concatenate(
@@ -283,51 +299,33 @@ class Evaluator:
                 k = np.searchsorted(far_keys, i[out] * n_trials + j[out])
                 far[k, g, h, pr.row[out] % nb, pr.col[out] % nb] = pr.data[out]
         band[0] *= 0.5  # band_scores adds each product's transpose
-        qr = np.stack([np.einsum("nib,nr->ibr", r, self.q) for r in raw], axis=1)  # (N, G, nb, r)
-        return (
+        qr = np.stack([np.asarray(w.T @ self.q).reshape(n_trials, nb, -1) for w in flat], axis=1)  # (N, G, nb, r)
+        return BandDetection(
+            self.det.col.astype(np.int64),
+            self.det.group.astype(np.int64),
+            nb,
             band,
             (far_keys // n_trials).astype(np.int64),
             (far_keys % n_trials).astype(np.int64),
             far,
             np.ascontiguousarray(qr),
+            contrast,
         )
-
-    def _fir_hits(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(volume, trial, lag) of every FIR bin that a volume falls in, the reference's rule."""
-        lay = self.layout
-        edges = fir_bins(self.setup)
-        vols, trials, lags = [], [], []
-        row = 0
-        for r, scans in enumerate(lay.scan_idx):
-            for i in np.flatnonzero(lay.run_of == r):
-                d = scans - lay.onset_idx[i]
-                if self.circular:
-                    d = d % lay.run_fine[r]
-                lag = np.searchsorted(edges, d, side="right") - 1
-                hit = np.flatnonzero((d >= 0) & (lag < self.setup.fir_lags))
-                vols.append(row + hit)
-                trials.append(np.full(hit.size, i))
-                lags.append(lag[hit])
-            row += len(scans)
-        return tuple(np.concatenate(x).astype(np.int64) if x else np.zeros(0, np.int64) for x in (vols, trials, lags))
 
     def _fir_scans(self) -> np.ndarray:
         """(N, lags): the volume in each trial's lag bin, -1 outside the run (bins of one TR)."""
         out = np.full((self.layout.n_trials, self.setup.fir_lags), -1, dtype=np.int64)
-        vol, trial, lag = self._fir_hits()
+        vol, trial, lag = self.hits
         out[trial, lag] = vol  # one volume per lag when the bin is one TR wide
         return out
 
-    def _fir_raw(self) -> np.ndarray:
-        """Unfiltered 0/1 FIR regressors (n_scans, N, lags); wide bins count each volume they hold."""
-        raw = np.zeros((self.layout.n_scans, self.layout.n_trials, self.setup.fir_lags))
-        vol, trial, lag = self._fir_hits()
-        np.add.at(raw, (vol, trial, lag), 1.0)
-        return raw
-
-    def _fir_bits(self, diag, off, qw) -> tuple | None:
+    def _fir_bits(self, diag, off, qw, contrast: KernelContrast) -> FirBitsEstimation | None:
         """What kernels.fir_bit_scores needs, or None where it does not apply: two trials at one
-        volume and lag (their columns would count 2 there), or too many distinct filter weights."""
+        volume and lag (their columns would count 2 there), or too many distinct filter weights.
+
+        W'Q is kept per trial and lag only over the columns of the trial's run (Q comes in run
+        blocks, zero elsewhere): qf (N, lags, width) from column qoff[trial], width the widest run
+        block, so its memory is linear in the trials, not trials x all runs' columns."""
         if not self.fir_unique:
             return None
         n = len(diag)
@@ -347,31 +345,43 @@ class Evaluator:
         if len(dw) > 4 or len(ow) > 4:
             return None
         fscan = np.where(self.fir_scan >= 0, self.fir_scan, n)  # n: a spare bit outside every mask
-        qf = np.where((self.fir_scan >= 0)[:, :, None], qw[np.minimum(fscan, n - 1)], 0.0)
-        return (fscan.astype(np.int64), np.ascontiguousarray(qf), n_words, dw, dmask, ow, omask)
+        rank = qw.shape[1]
+        width = int(np.diff(self.q_starts).max(initial=0))
+        qoff = np.minimum(self.q_starts[self.layout.run_of], rank - width).astype(np.int64)
+        qf = np.empty((len(fscan), self.setup.fir_lags, width))
+        for first in np.unique(qoff):  # per run: a block of W'Q's columns, gathered at the volumes
+            trials = np.flatnonzero(qoff == first)
+            qf[trials] = qw[np.minimum(fscan[trials], n - 1), first : first + width]
+        qf[self.fir_scan < 0] = 0.0
+        col = self.est.col.astype(np.int64)
+        return FirBitsEstimation(col, fscan.astype(np.int64), qf, qoff, rank, n_words, dw, dmask, ow, omask, contrast)
 
-    def _omega(self) -> np.ndarray:
-        """W'(I - QQ')W over all volumes: inner products of filtered 0/1 regressors are its entries.
+    def _fir_path(self, contrast: KernelContrast) -> FirBitsEstimation | FirHitsEstimation:
+        """The compiled FIR path (bins of one TR): bitsets where they apply, else the volumes'
+        (trial, lag) hits; both read the tridiagonal W'W of the AR(1) filter and W'Q."""
+        wtw = (self.w.T @ self.w).tocsr()  # tridiagonal: W is bidiagonal within runs
+        n = wtw.shape[0]
+        diag, off = wtw.diagonal().copy(), np.append(wtw.diagonal(1), 0.0)
+        qw = np.ascontiguousarray(self.w.T @ self.q)
+        bits = self._fir_bits(diag, off, qw, contrast)
+        if bits is not None:
+            return bits
+        t, lag = np.nonzero(self.fir_scan >= 0)
+        scan = self.fir_scan[t, lag]
+        order = np.argsort(scan, kind="stable")
+        ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
+        col = self.est.col.astype(np.int64)
+        hit_t, hit_lag = t[order].astype(np.int64), lag[order].astype(np.int64)
+        return FirHitsEstimation(col, ptr, hit_t, hit_lag, diag, off, qw, contrast)
 
-        Also keeps what kernels.fir_scores needs: the volumes' (trial, lag) hits, the tridiagonal
-        W'W and W'Q (None where the compiled path does not apply)."""
-        eye = np.eye(self.layout.n_scans)
-        w = whiten(eye, self.setup.ar1, self.layout.run_lengths)
-        self.fir_kernel = self.fir_bits = None
-        if self.compiled and self.setup.fir_step <= self.setup.tr + 1e-9:
-            wtw = w.T @ w
-            n = len(wtw)
-            diag, off = np.diag(wtw).copy(), np.append(np.diag(wtw, 1), 0.0)
-            if np.allclose(wtw, np.diag(diag) + np.diag(off[:-1], 1) + np.diag(off[:-1], -1), rtol=0, atol=0):
-                t, lag = np.nonzero(self.fir_scan >= 0)
-                scan = self.fir_scan[t, lag]
-                order = np.argsort(scan, kind="stable")
-                ptr = np.concatenate([[0], np.cumsum(np.bincount(scan, minlength=n))]).astype(np.int64)
-                qw = w.T @ self.q
-                self.fir_kernel = (ptr, t[order].astype(np.int64), lag[order].astype(np.int64), diag, off, qw)
-                self.fir_bits = self._fir_bits(diag, off, qw)
-        rw = w - self.q @ (self.q.T @ w)
-        return rw.T @ rw
+    @property
+    def omega(self) -> np.ndarray:
+        """W'(I - QQ')W over all volumes, (n_scans, n_scans): inner products of filtered 0/1 FIR
+        regressors are its entries. Dense, so built on first use (FIR neighbour scores)."""
+        if self._omega is None:
+            qw = np.asarray(self.w.T @ self.q)
+            self._omega = (self.w.T @ self.w).toarray() - qw @ qw.T
+        return self._omega
 
     # -- scoring ----------------------------------------------------------------------------
 
@@ -389,49 +399,19 @@ class Evaluator:
 
         A part not asked for comes back as NaN.
         """
-        codes = np.atleast_2d(codes)
-        codes64 = np.ascontiguousarray(codes, dtype=np.int64)  # what the kernels take
+        codes = np.ascontiguousarray(np.atleast_2d(codes), dtype=np.int64)  # what the kernels take
         det = est = np.full(codes.shape[0], np.nan)
         with one_blas_thread():
-            if detection and self.band is not None:
-                det = kernels.band_scores(
-                    codes64,
-                    self.det.col.astype(np.int64),
-                    self.det.group.astype(np.int64),
-                    self.det.nb,
-                    *self.band,
-                    *self.k_det,
-                    self.setup.criterion == "D",
-                )
-            elif detection:
-                xd = self.det.design(codes)
-                md = np.swapaxes(xd, 1, 2) @ xd
-                det, _ = batch_efficiency(md, self.c_det, self.setup.criterion)
-            if estimation and self.fir_bits is not None:
-                est = kernels.fir_bit_scores(
-                    codes64,
-                    self.est.col.astype(np.int64),
-                    *self.fir_bits,
-                    *self.k_est,
-                    self.setup.criterion == "D",
-                )
-            elif estimation and self.fir_kernel is not None:
-                ptr, trial, lag, diag, off, qw = self.fir_kernel
-                est = kernels.fir_scores(
-                    codes64,
-                    self.est.col.astype(np.int64),
-                    ptr,
-                    trial,
-                    lag,
-                    diag,
-                    off,
-                    np.ascontiguousarray(qw),
-                    *self.k_est,
-                    self.setup.criterion == "D",
-                )
-            elif estimation:
-                est, _ = batch_efficiency(self._fir_information(codes), self.c_est, self.setup.criterion)
+            if detection:
+                det = self.full_detection.scores(codes)
+            if estimation:
+                est = self.full_estimation.scores(codes)
         return det, est
+
+    def _detection_information(self, codes: np.ndarray) -> np.ndarray:
+        """Detection information for many orderings (B, p, p), from their design matrices."""
+        xd = self.det.design(codes)
+        return np.swapaxes(xd, 1, 2) @ xd
 
     def _fir_information(self, codes: np.ndarray) -> np.ndarray:
         """FIR information for many orderings: build the 0/1 design by scatter, then filter it.
@@ -508,7 +488,8 @@ class Evaluator:
         new = np.tile(np.arange(self.k), len(trials))
         terms = [(new, trial, 1.0), (codes[trial], trial, -1.0)]
         moves = (new, codes[trial], trial, np.full(len(trial), -1))
-        return self._score_terms(part, codes, terms, contrast, fir=False, moves=moves).reshape(len(trials), self.k)
+        cands = Candidates(terms, moves)
+        return self._neighbour_scores(part, codes, cands, contrast, fir=False).reshape(len(trials), self.k)
 
     def _swaps(self, part: _Part, codes: np.ndarray, pairs: np.ndarray, contrast: np.ndarray, fir: bool) -> np.ndarray:
         """Swap trials i and j: condition c_j gains trial i and loses j, c_i the reverse."""
@@ -517,315 +498,55 @@ class Evaluator:
         i, j = pairs[:, 0], pairs[:, 1]
         ci, cj = codes[i], codes[j]
         terms = [(cj, i, 1.0), (cj, j, -1.0), (ci, j, 1.0), (ci, i, -1.0)]
-        return self._score_terms(part, codes, terms, contrast, fir=fir, moves=(cj, ci, i, j))
+        return self._neighbour_scores(part, codes, Candidates(terms, (cj, ci, i, j)), contrast, fir)
 
-    def _score_terms(
-        self, part: _Part, codes: np.ndarray, terms, contrast: np.ndarray, fir: bool, moves=None
+    def _neighbour_scores(
+        self, part: _Part, codes: np.ndarray, cands: Candidates, contrast: np.ndarray, fir: bool
     ) -> np.ndarray:
-        """Scores of candidates given as column-block updates, in chunks that stay in cache.
+        """Scores of candidates given as column-block updates of the current design: the one place
+        that chooses how (neighbours.py), each fallback taking exactly what the faster path left.
 
-        moves: the same candidates as (gaining condition, losing condition, trial, trial taken
-        away or -1), for the rank-2 path of kernels.rank2_scores."""
-        n_cand = len(terms[0][0])
-        chunk = max(1, 2_000_000 // (part.p * part.p))
-        x = part.design(codes[None])[0]
-        m = x.T @ x
-        xp = np.stack([np.einsum("np,nib->ipb", x, reg, optimize=True) for reg in part.regs])  # (G, N, p, nb)
-        if self.compiled and (part is self.det or self.setup.fir_step <= self.setup.tr + 1e-9):
-            if moves is not None and part.nb == 1 and len(part.regs) == 1 and self.setup.criterion == "A":
-                out = self._rank2(part, m, xp, moves, contrast)
-                if out is not None:
-                    redo = np.flatnonzero(np.isnan(out))
-                    if len(redo):
-                        out[redo] = self._compiled_terms(
-                            part, m, xp, [(c[redo], t[redo], sg) for c, t, sg in terms], contrast
-                        )
-                    return out
-            return self._compiled_terms(part, m, xp, terms, contrast)
-        if part.nb == 1 and self.setup.criterion == "A":
-            fast = self._woodbury(part, m, xp, terms, contrast, fir)
-            if fast is not None:
-                return fast
-        out = np.empty(n_cand)
-        for lo in range(0, n_cand, chunk):
-            sl = slice(lo, lo + chunk)
-            sub = [(c[sl], t[sl], sg) for c, t, sg in terms]
-            out[sl] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, self.setup.criterion)[0]
-        return out
-
-    def _rank2(self, part: _Part, m: np.ndarray, xp: np.ndarray, moves, contrast: np.ndarray) -> np.ndarray | None:
-        """kernels.rank2_scores; None when the current design is singular."""
-        if _regular_cholesky(m) is None:
-            return None
-        minv = np.linalg.inv(m)
-        minv = (minv + minv.T) / 2
-        cm = contrast @ minv
-        h = cm.T @ cm
-        x1 = np.ascontiguousarray(xp[0, :, :, 0])
-        gains, loses, t1, t2 = (np.ascontiguousarray(v, dtype=np.int64) for v in moves)
-        return kernels.rank2_scores(
-            minv,
-            h,
-            float(np.trace(cm @ contrast.T)),
-            x1,
-            x1 @ minv,
-            x1 @ h,
-            self._gram(part)[0, 0, :, 0, :, 0],
-            part.col.astype(np.int64),
-            gains,
-            loses,
-            t1,
-            t2,
-        )
-
-    def _cross_source(self, part: _Part) -> tuple:
-        """Where the compiled kernels read trial products: FIR's from Omega at the trials' volumes
-        (bins of one TR), detection's from the trials' Gram matrix."""
-        if part is self.est:
-            return 1, np.zeros((1, 1, 1, 1, 1, 1)), self.omega, self.fir_scan
-        return 0, self._gram(part), np.zeros((1, 1)), np.zeros((1, 1), dtype=np.int64)
-
-    def _compiled_terms(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray) -> np.ndarray:
-        """Compiled scores of candidates given as (condition, trial, sign) terms.
-
-        Candidates that touch the same condition blocks are scored together through the Cholesky
-        factor of the untouched blocks (kernels.schur_scores) when there are enough of them to pay
-        for its set-up; the rest, and designs whose untouched part is singular, one by one through
-        a whole factorisation (kernels.update_scores)."""
-        conds = np.ascontiguousarray(np.stack([c for c, _, _ in terms], axis=1), dtype=np.int64)
-        trials = np.ascontiguousarray(np.stack([t for _, t, _ in terms], axis=1), dtype=np.int64)
-        signs = np.array([sg for _, _, sg in terms], dtype=float)
-        xp = np.ascontiguousarray(xp)
-        source = self._cross_source(part)
-        d_crit = self.setup.criterion == "D"
-        out = np.full(len(conds), np.nan)
-        # the blocks a candidate touches: the modelled conditions among its terms (at most two)
-        cols = part.col[conds]
-        lo = np.where(cols >= 0, cols, part.p).min(axis=1)
-        hi = cols.max(axis=1)
-        key = lo * (part.p + 1) + np.maximum(hi, 0)
-        prepared = kernels.prepare_contrast(contrast)
-
-        def whole(sel: np.ndarray) -> np.ndarray:  # one whole factorisation per candidate
-            return kernels.update_scores(
-                m,
-                xp,
-                *source,
-                part.col.astype(np.int64),
-                part.group.astype(np.int64),
-                part.nb,
-                conds[sel],
-                trials[sel],
-                signs,
-                *prepared,
-                d_crit,
-            )
-
-        for k in np.unique(key):
-            idx = np.flatnonzero(key == k)
-            first, last = int(lo[idx[0]]), int(hi[idx[0]])
-            if first == part.p:  # baseline trials only: the design does not change
-                out[idx] = whole(idx[:1])[0]
-                continue
-            if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
-                starts = [first] if first == last else [first, last]
-                done = self._schur(part, m, xp, source, starts, conds[idx], trials[idx], signs, contrast)
-                if done is not None:
-                    out[idx] = done
-                    continue
-            out[idx] = whole(idx)
-        return out
-
-    def _schur(self, part, m, xp, source, starts, conds, trials, signs, contrast) -> np.ndarray | None:
-        """kernels.schur_scores for candidates that touch the blocks starting at columns `starts`;
-        None when the untouched part of the current design is singular."""
-        nb = part.nb
-        s_idx = np.concatenate([np.arange(c, c + nb) for c in starts])
-        r_idx = np.setdiff1d(np.arange(part.p), s_idx)
-        ct = np.asarray(contrast, dtype=float).T  # (p, q)
-        if len(r_idx):
-            l_rr = _regular_cholesky(m[np.ix_(r_idx, r_idx)])
-            if l_rr is None:
-                return None
-            li = solve_triangular(l_rr, np.eye(len(r_idx)), lower=True, check_finite=False)
-        else:
-            li = np.zeros((0, 0))
-        a0 = m[np.ix_(s_idx, r_idx)] @ li.T
-        g_r = li @ ct[r_idx]  # (r, q)
-        h0 = ct[s_idx] - a0 @ g_r
-        e = np.einsum("rk,gnkb->gnbr", li, xp[:, :, r_idx, :], optimize=True)
-        eg = e @ g_r
-        us = np.ascontiguousarray(xp[:, :, s_idx, :])
-        # order the contrasts by their first non-zero row in S (zeros are structural)
-        used = (h0 != 0) | (eg != 0).any(axis=(0, 1, 2))[None, :]
-        first = np.where(used.any(axis=0), used.argmax(axis=0), len(s_idx))
-        order = np.argsort(first, kind="stable")
-        active = np.searchsorted(first[order], np.arange(len(s_idx)), side="right").astype(np.int64)
-        g_r = g_r[:, order]
-        const = g_r.T @ g_r if self.setup.criterion == "D" else np.array([[np.sum(g_r * g_r)]])
-        block = np.full(part.p + 1, -1, dtype=np.int64)
-        for b, c in enumerate(starts):
-            block[c] = b
-        blocks = block[np.where(part.col[conds] >= 0, part.col[conds], part.p)]
-        return kernels.schur_scores(
-            np.ascontiguousarray(m[np.ix_(s_idx, s_idx)]),
-            np.ascontiguousarray(a0),
-            np.ascontiguousarray(h0[:, order]),
-            active,
-            np.ascontiguousarray(const),
-            np.ascontiguousarray(e),
-            np.ascontiguousarray(eg[..., order]),
-            us,
-            *source,
-            part.group.astype(np.int64),
-            nb,
-            conds,
-            np.ascontiguousarray(blocks),
-            trials,
-            signs,
-            self.setup.criterion == "D",
-        )
-
-    def _woodbury(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, contrast: np.ndarray, fir: bool):
-        """One-regressor-per-condition case: each candidate changes M by U S U' with U of 4 columns
-        (two unit vectors and two X'd vectors), so its trace(C M'^-1 C') follows from 4 x 4 algebra.
-        Candidates whose update nearly cancels M's rank are recomputed the plain way; None if M itself
-        is singular."""
-        if _regular_cholesky(m) is None:
-            return None
-        minv = np.linalg.inv(m)
-        h = minv @ contrast.T @ contrast @ minv
-        t0 = float(np.trace(contrast @ minv @ contrast.T))
-        # merge the terms into two blocks: (condition a, vector va) and (condition b, vector vb)
-        blocks = _two_blocks(terms)
-        n_cand = len(terms[0][0])
-        cols, avec = [], []
-        for cond, members in blocks:
-            has = part.col[cond] >= 0
-            a = sum(sg * xp[part.group[cond], t][:, :, 0] for t, sg in members) * has[:, None]  # (B, p)
-            cols.append((np.maximum(part.col[cond], 0), has))
-            avec.append(a)
-        dm = np.zeros((n_cand, 2, 2))
-        for x_, (cond1, mem1) in enumerate(blocks):
-            for y_, (cond2, mem2) in enumerate(blocks):
-                has = (part.col[cond1] >= 0) & (part.col[cond2] >= 0)
-                for t1, s1 in mem1:
-                    for t2, s2 in mem2:
-                        dm[:, x_, y_] += s1 * s2 * self._cross(part, cond1, cond2, t1, t2, fir)[:, 0, 0] * has
-
-        # U = [e_a, e_b, A_a, A_b]; the products U' Minv U and U' H U, entry by entry
-        def unit_prod(mat, c1, c2):
-            return mat[c1[0], c2[0]] * c1[1] * c2[1]
-
-        def mixed(mat_a, c1):  # e_c' (mat a) for each candidate
-            return mat_a[np.arange(n_cand), c1[0]] * c1[1]
-
-        us = []
-        for mat in (minv, h):
-            ma = [a @ mat for a in avec]  # rows: a' mat (mat symmetric)
-            g = np.empty((n_cand, 4, 4))
-            for x_ in range(2):
-                for y_ in range(2):
-                    g[:, x_, y_] = unit_prod(mat, cols[x_], cols[y_])
-                    g[:, x_, 2 + y_] = mixed(ma[y_], cols[x_])
-                    g[:, 2 + y_, x_] = g[:, x_, 2 + y_]
-                    g[:, 2 + x_, 2 + y_] = np.einsum("bp,bp->b", ma[x_], avec[y_])
-            us.append(g)
-        umu, uhu = us
-        s_inv = np.zeros((n_cand, 4, 4))
-        s_inv[:, 0:2, 2:4] = np.eye(2)
-        s_inv[:, 2:4, 0:2] = np.eye(2)
-        s_inv[:, 2:4, 2:4] = -dm
-        kmat = s_inv + umu
-        det_k = np.linalg.det(kmat)
-        ok = np.abs(det_k) > 1e-8
-        safe = np.where(ok[:, None, None], kmat, np.eye(4))
-        trace = t0 - np.einsum("bii->b", np.linalg.solve(safe, uhu))
-        eff = np.where(ok, 1.0 / trace, 0.0)
-        if not ok.all():
-            bad = np.flatnonzero(~ok)
-            sub = [(c[bad], t[bad], sg) for c, t, sg in terms]
-            eff[bad] = batch_efficiency(self._updated(part, m, xp, sub, fir), contrast, "A")[0]
-        return eff
-
-    def _updated(self, part: _Part, m: np.ndarray, xp: np.ndarray, terms, fir: bool) -> np.ndarray:
-        """Information matrices after adding sign * (trial's regressor) to a condition's column block,
-        for each (condition, trial, sign) term, one candidate per entry.
-
-        With A = X'd and D = d'd for the touched blocks: M' = (X + d)'(X + d) = M + A + A' + D, added
-        block by block. Candidates are grouped by the conditions they touch, so every addition is a
-        plain slice of the same columns.
+        Compiled (detection, or FIR with bins of one TR): the rank-2 update where it applies (one
+        regressor per condition, one duration group, A-criterion); then, per group of candidates
+        touching the same blocks, the shared Schur factor when there are at least SCHUR_MIN of them
+        and SCHUR_MIN_COLUMNS columns and the untouched part is regular, else a whole factorisation
+        each. numpy: the 4 x 4 Woodbury update where it applies, else whole matrices.
         """
-        nb, n_cand = part.nb, len(terms[0][0])
-        a = [xp[part.group[cond], trial] * sign for cond, trial, sign in terms]  # each (B, p, nb)
-        d = {
-            (t1, t2): s1 * s2 * self._cross(part, c1, c2, tr1, tr2, fir)
-            for t1, (c1, tr1, s1) in enumerate(terms)
-            for t2, (c2, tr2, s2) in enumerate(terms)
-        }
-        conds = np.stack([cond for cond, _, _ in terms], axis=1)  # (B, n_terms)
-        mm = np.broadcast_to(m, (n_cand,) + m.shape).copy()
-        keys, group = np.unique(conds, axis=0, return_inverse=True)
-        for g, key in enumerate(keys):
-            idx = np.flatnonzero(group.ravel() == g)
-            sub = mm[idx]
-            blocks = [slice(part.col[c], part.col[c] + nb) if part.col[c] >= 0 else None for c in key]
-            for t, blk in enumerate(blocks):
-                if blk is None:
+        x = part.design(codes[None])[0]
+        cur = Current(part, x.T @ x, np.ascontiguousarray(part.cross(x)), contrast, self.setup.criterion)
+        one_column = part.nb == 1 and self.setup.criterion == "A"
+        bins_of_one_tr = self.setup.fir_step <= self.setup.tr + 1e-9
+        out = np.full(len(cands), np.nan)
+        if self.compiled and (part is self.det or bins_of_one_tr):
+            products = self._products(part, omega=part is self.est)
+            if one_column and len(part.whitened) == 1:
+                rank2 = Rank2Update(cur, products).scores(cands)
+                out = out if rank2 is None else rank2
+            todo = np.flatnonzero(np.isnan(out))
+            if len(todo) == 0:
+                return out
+            rest, whole = cands.subset(todo), WholeUpdate(cur, products)
+            for idx, starts in block_groups(part, rest):
+                sub = rest.subset(idx)
+                if not starts:  # baseline trials only: the design does not change
+                    out[todo[idx]] = whole.scores(sub.subset(np.arange(1)))[0]
                     continue
-                sub[:, :, blk] += a[t][idx]
-                sub[:, blk, :] += np.swapaxes(a[t][idx], 1, 2)
-            for (t1, t2), dd in d.items():
-                if blocks[t1] is not None and blocks[t2] is not None:
-                    sub[:, blocks[t1], blocks[t2]] += dd[idx]
-            mm[idx] = sub
-        return mm
+                done = None
+                if len(idx) >= SCHUR_MIN and part.p >= SCHUR_MIN_COLUMNS:
+                    done = SchurUpdate(cur, products, starts).scores(sub)
+                out[todo[idx]] = whole.scores(sub) if done is None else done
+            return out
+        products = self._products(part, omega=fir and bins_of_one_tr)
+        if one_column:
+            woodbury = WoodburyUpdate(cur, products).scores(cands)
+            out = out if woodbury is None else woodbury
+        todo = np.flatnonzero(np.isnan(out))
+        if len(todo):
+            out[todo] = DenseUpdate(cur, products).scores(cands.subset(todo))
+        return out
 
-    def _cross(self, part: _Part, c1, c2, t1, t2, fir: bool) -> np.ndarray:
-        """Products of trial t1's regressor (group of c1) with trial t2's (group of c2): (B, nb, nb)."""
-        if fir and self.setup.fir_step <= self.setup.tr + 1e-9:
-            s1, s2 = self.fir_scan[t1], self.fir_scan[t2]  # (B, lags)
-            vals = self.omega[np.maximum(s1, 0)[:, :, None], np.maximum(s2, 0)[:, None, :]]
-            return vals * ((s1 >= 0)[:, :, None] & (s2 >= 0)[:, None, :])
-        if np.array_equal(t1, t2):
-            return self._own(part)[part.group[c1], part.group[c2], t1]
-        gram = self._gram(part)
-        return gram[part.group[c1], part.group[c2], t1, :, t2, :]
-
-    def _gram(self, part: _Part) -> np.ndarray:
-        """All trials' regressor products between groups: (G, G, N, nb, N, nb), computed once."""
-        if getattr(part, "gram", None) is None:
-            regs = part.regs
-            part.gram = np.array([[np.einsum("nib,njc->ibjc", g, h, optimize=True) for h in regs] for g in regs])
-        return part.gram
-
-    def _own(self, part: _Part) -> np.ndarray:
-        """Each trial's regressor products between groups: (G, G, N, nb, nb), computed once."""
-        if getattr(part, "own", None) is None:
-            regs = part.regs
-            part.own = np.array([[np.einsum("nib,nic->ibc", g, h, optimize=True) for h in regs] for g in regs])
-        return part.own
-
-
-def _regular_cholesky(m: np.ndarray) -> np.ndarray | None:
-    """Lower Cholesky factor of m, or None when m counts as singular (the RCOND rule)."""
-    try:
-        chol = np.linalg.cholesky(m)
-    except np.linalg.LinAlgError:
-        return None
-    if (np.diag(chol) ** 2 <= RCOND * np.maximum(np.diag(m), 1e-300)).any():
-        return None
-    return chol
-
-
-def _two_blocks(terms):
-    """Group (condition, trial, sign) terms into the two condition blocks they touch.
-
-    Changes: (new, +), (old, -); swaps: (c_j, +i), (c_j, -j), (c_i, +j), (c_i, -i).
-    """
-    if len(terms) == 2:
-        return [(terms[0][0], [(terms[0][1], terms[0][2])]), (terms[1][0], [(terms[1][1], terms[1][2])])]
-    return [
-        (terms[0][0], [(terms[0][1], terms[0][2]), (terms[1][1], terms[1][2])]),
-        (terms[2][0], [(terms[2][1], terms[2][2]), (terms[3][1], terms[3][2])]),
-    ]
+    def _products(self, part: _Part, omega: bool) -> TrialProducts:
+        """Trial products from the part's Gram matrices, or (omega) from Omega at the FIR volumes."""
+        if omega:
+            return TrialProducts(part, self.fir_scan, lambda: self.omega)
+        return TrialProducts(part)

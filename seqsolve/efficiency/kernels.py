@@ -13,7 +13,7 @@ import numpy as np
 from numba import njit, types
 from numba.extending import intrinsic
 
-#: the same singularity rule as fast.RCOND
+#: the same singularity rule as algebra.RCOND
 RCOND = 1e-10
 
 #: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf
@@ -63,25 +63,10 @@ def _cholesky_against(a, out, rcond, ref):
     return True
 
 
-def prepare_contrast(contrast: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """C' with its columns ordered by their first non-zero weight, and for each parameter i the
-    number of those columns that start at or before i: the shape _efficiency expects.
-
-    Reordering contrast rows changes neither trace(C M^-1 C') nor its determinant, and with the
-    rows in this order (L^-1 C')'s row i is zero beyond active[i] (C kron I for FIR is mostly zeros).
-    """
-    c = np.asarray(contrast, dtype=float)
-    nonzero = c != 0
-    first = np.where(nonzero.any(axis=1), nonzero.argmax(axis=1), c.shape[1])
-    order = np.argsort(first, kind="stable")
-    active = np.searchsorted(first[order], np.arange(c.shape[1]), side="right")
-    return np.ascontiguousarray(c[order].T), active.astype(np.int64)
-
-
 @njit(cache=True, fastmath=_FAST)
 def _efficiency(m, ct, active, d_criterion, work, half):
     """A- or D-efficiency of information m (only its lower triangle is read) for the contrast
-    prepared by prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
+    prepared by paths.prepare_contrast (ct = C' (p, q), active (p,)); 0 when m is singular.
 
     work (p, p) and half (p, q) are scratch space; m may be larger (its leading p x p block counts)."""
     if not _cholesky(m, work, RCOND):  # m = L L', L in work's lower triangle
@@ -255,7 +240,7 @@ def fir_scores(codes, col, scan_ptr, hit_trial, hit_lag, diag, off, qw, ct, acti
 
 
 @njit(cache=True, fastmath=_FAST)
-def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, active, d_criterion):
+def fir_bit_scores(codes, col, fscan, qf, qoff, rank, n_words, dw, dmask, ow, omask, ct, active, d_criterion):
     """fir_scores for designs where no two trials of a design share a volume at the same lag:
     each FIR column is then a set of volumes, kept as a bitset, and the products of two columns
     are counts of the volumes they share, by popcount.
@@ -264,11 +249,14 @@ def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, act
     where dmask[k] marks the volumes whose W'W diagonal is dw[k], and omask[k] the volumes s whose
     W'W entry with s + 1 is ow[k] (AR(1) prewhitening; none without it). Then M -= Y Y' as before.
     fscan (N, lags): each trial's volume at each lag (a spare bit past the last volume, outside
-    every mask, where the lag falls outside the run); qf (N, lags, r): W'Q at those volumes (0 outside).
+    every mask, where the lag falls outside the run); qf (N, lags, width): W'Q at those volumes (0
+    outside) in columns qoff[trial] onwards (W'Q is zero outside the trial's run's columns), of the
+    `rank` columns of Q.
     """
     n_designs, n_trials = codes.shape
     lags = fscan.shape[1]
-    r = qf.shape[2]
+    r = rank
+    width = qf.shape[2]
     p = ct.shape[0]
     nd = len(dw)
     no = len(ow)
@@ -292,8 +280,12 @@ def fir_bit_scores(codes, col, fscan, qf, n_words, dw, dmask, ow, omask, ct, act
             for lag in range(lags):
                 sc = fscan[t, lag]
                 bits[c + lag, sc >> 6] |= one << np.uint64(sc & 63)
-                for a in range(r):
-                    y[c + lag, a] += qf[t, lag, a]
+                # a slice, so that the inner index is a plain range (no wrap-round test per
+                # element, which kept LLVM from vectorising the loop: 2.4x slower, measured)
+                dst = y[c + lag, qoff[t] : qoff[t] + width]
+                src = qf[t, lag]
+                for a in range(width):
+                    dst[a] += src[a]
         if no:
             for j in range(p):
                 for w in range(n_words):

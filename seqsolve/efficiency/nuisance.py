@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from scipy import sparse
 
 
 def cosine_drift(n_scans: int, tr: float, cutoff: float) -> np.ndarray:
@@ -66,3 +67,47 @@ def residual_basis(nuisance_w: np.ndarray) -> np.ndarray:
         return nuisance_w
     u, s, _ = np.linalg.svd(nuisance_w, full_matrices=False)
     return u[:, s > s.max() * 1e-10]
+
+
+def whitening_matrix(rho: float, run_lengths: list[int]) -> sparse.csr_matrix:
+    """The AR(1) prewhitening filter of `whiten` as a sparse matrix W (n_scans, n_scans): lower
+    bidiagonal within each run (sqrt(1 - rho^2) first, then 1 and -rho), nothing across runs."""
+    n = sum(run_lengths)
+    diag = np.ones(n)
+    sub = np.full(max(n - 1, 0), -rho)
+    start = 0
+    for length in run_lengths:
+        diag[start] = np.sqrt(1.0 - rho**2) if rho != 0 else 1.0
+        if start > 0:
+            sub[start - 1] = 0.0  # a run's first volume does not follow the previous run's last
+        start += length
+    w = sparse.diags([diag, sub], [0, -1], shape=(n, n), format="csr") if n else sparse.csr_matrix((0, 0))
+    w.eliminate_zeros()
+    return w
+
+
+def run_bases(
+    run_lengths: list[int], tr: float, cutoff: float | None, degree: int, rho: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Orthonormal basis of the whitened nuisance space of these runs, built run by run.
+
+    Returns (basis (n_scans, rank), starts (n_runs + 1,)): run k's columns are
+    starts[k]:starts[k + 1], zero outside the run. A column is kept where its singular value passes
+    1e-10 of the largest over all runs, as residual_basis keeps them for the whole block-diagonal
+    matrix: the same space, at a cost linear in the number of runs instead of cubic.
+    """
+    parts = []
+    for n in run_lengths:
+        nuis = whiten(run_nuisance(n, tr, cutoff, degree), rho, [n])
+        u, s, _ = np.linalg.svd(nuis, full_matrices=False)
+        parts.append((u, s))
+    top = max((s.max() for _, s in parts if s.size), default=0.0)
+    out = np.zeros((sum(run_lengths), sum(int((s > top * 1e-10).sum()) for _, s in parts)))
+    starts = [0]
+    row = 0
+    for (u, s), n in zip(parts, run_lengths):
+        keep = u[:, s > top * 1e-10]
+        out[row : row + n, starts[-1] : starts[-1] + keep.shape[1]] = keep
+        row += n
+        starts.append(starts[-1] + keep.shape[1])
+    return out, np.asarray(starts, dtype=np.int64)

@@ -76,8 +76,9 @@ class SearchOptions:
     budget: float | None = None  # wall-clock seconds per participant
     pool: int = 32  # diverse valid starts sampled from CP-SAT (fewer under the per-position model)
     moves: int = 64  # moves per round
-    batch: int = 24  # random swaps drawn per move (judged, the valid ones scored)
-    screen: int = 4  # compiled moves: estimation scored exactly for this many, the best by its gradient (0: all)
+    batch: int = 96  # random swaps drawn per compiled move (judged, the valid ones scored)
+    screen: int = 8  # compiled moves: estimation scored exactly for this many, the best by its gradient (0: all)
+    batch_numpy: int = 24  # swaps drawn per move where they are scored through the Evaluator (slower)
     history: int | None = None  # late acceptance: a move may score below the current design, not below the
     # design of this many moves ago; None: the expected number of moves / HISTORY_SHARE (set after one round
     # when the search runs to a wall-clock budget)
@@ -371,7 +372,7 @@ class Search:
 
     def _move(self) -> None:
         """Draw swaps, keep the valid ones, score them, make the best one under late acceptance."""
-        pairs = self._draw_pairs(self.options.batch)
+        pairs = self._draw_pairs(self.options.batch_numpy)
         if len(pairs):
             pairs = pairs[self.checker.valid(pairs)]
         slot = self.moves_made % len(self.late)

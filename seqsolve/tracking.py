@@ -37,14 +37,16 @@ NO_FIR_TRACK = FirTrack(
 def detection_track(evaluator: Evaluator, setup: AnalysisSetup, codes: np.ndarray) -> Track | None:
     """The tracked detection state of a design (runs concatenated), or None where it does not apply."""
     part = evaluator.det
-    n = part.regs[0].shape[1]
+    n = part.n_trials
     groups = {int(part.group[c]) for c in part.modelled}  # the baseline's own duration does not matter
     if len(groups) != 1 or part.nb != 1 or setup.criterion != "A" or n > MAX_TRIALS:
         return None
-    r = part.regs[groups.pop()][:, :, 0]
+    # products of the filtered regressors (I - QQ')WR: (WR)'WR - (Q'WR)'(Q'WR)
+    wr = part.whitened[groups.pop()]
+    proj = np.asarray((wr.T @ part.q).T)
     p = part.p
     track = Track(
-        gram=np.ascontiguousarray(r.T @ r),
+        gram=np.ascontiguousarray((wr.T @ wr).toarray() - proj.T @ proj),
         col=part.col.astype(np.int64),
         contrast=np.ascontiguousarray(setup.detection_contrast(), dtype=float),
         m=np.zeros((p, p)),

@@ -188,8 +188,13 @@ class Objective(Strict):
     detection: float = Field(default=1.0, ge=0, description="Weight of detection (relative to the best block design).")
     estimation: float = Field(default=1.0, ge=0, description="Weight of estimation (relative to random orderings).")
     counterbalance: float = Field(default=0.0, ge=0, description="Weight of first-order counterbalancing.")
-    iterations: int = Field(default=150, ge=0, le=1_000_000, description="Search steps per participant; 0: no search.")
-    stall: int = Field(default=50, ge=1, description="Stop a participant's search after this many steps without gain.")
+    iterations: int = Field(
+        default=30,
+        ge=0,
+        le=1_000_000,
+        description="Search rounds per participant (each about 0.1-0.5 s: thousands of moves); 0: no search.",
+    )
+    stall: int = Field(default=10, ge=1, description="Stop a participant's search after this many rounds without gain.")
     spread: float = Field(
         default=0.05, ge=0, lt=1, description="Every participant's score within this fraction of the best one's."
     )

@@ -175,10 +175,7 @@ class BatchJudge:
             other = t.codes if rule.other is None else facts.resolve(rule.other).codes
             for x, m in zip(runs, views):
                 a, b = self.member(x, t.codes), self.member(x, other)
-                if rule.other is not None and set(t.codes) & set(other):
-                    both = a & b  # a trial of both target and other is a gap of -1
-                    broken |= both.any(axis=1)
-                    m |= both
+                # a trial of both target and other is not its own neighbour (the rule's check)
                 for d in range(1, rule.gap + 1):
                     _mark_pairs(a[:, :-d] & b[:, d:], d, broken, m)
                     if rule.other is not None:

@@ -436,7 +436,16 @@ def _validate(model: type[BaseModel], data: dict, source: str):
         errors = exc.errors()
         # a table where a name is also allowed (hrf): the name's "should be 'a' or 'b'" says nothing useful
         shown = [e for e in errors if not (e["type"] == "literal_error" and isinstance(e.get("input"), dict))]
-        raise SpecError(source, [_problem(model, data, e) for e in shown or errors]) from None
+        raise SpecError(source, [_problem_or_plain(model, data, e) for e in shown or errors]) from None
+
+
+def _problem_or_plain(model: type[BaseModel], data: dict, err: dict) -> Problem:
+    """The teaching message of _problem; pydantic's own if the value is too odd for it (a table as a
+    'kind', ...): a strange spec must still get its field named, never a crash while explaining."""
+    try:
+        return _problem(model, data, err)
+    except Exception:  # noqa: BLE001 - the plain message is always available
+        return Problem(_path(list(err["loc"])), f"{err['msg']}; got {shorten(err.get('input'))}")
 
 
 def _gather_rules(spec: Spec, path: Path) -> tuple[list[Rule], list[str]]:
@@ -726,10 +735,16 @@ def _model_at(model, data, loc: list):
         if isinstance(part, int):
             current = _unwrap(_list_item(current), None)
             value = value[part] if isinstance(value, list) and part < len(value) else None
-            if current is None and isinstance(value, dict) and value.get("kind") in RULE_KINDS:
+            if current is None and _kind(value) in RULE_KINDS:
                 current = RULE_KINDS[value["kind"]]
     current = _unwrap(current, value)
     return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _kind(value) -> str | None:
+    """A rule's 'kind' when it is a string (a fuzzed spec may put a table or a list there)."""
+    kind = value.get("kind") if isinstance(value, dict) else None
+    return kind if isinstance(kind, str) else None
 
 
 def _unwrap(tp, value):
@@ -740,7 +755,7 @@ def _unwrap(tp, value):
             tp = typing.get_args(tp)[0]
         elif origin is Union or origin is types.UnionType:
             args = [a for a in typing.get_args(tp) if a is not type(None)]
-            if isinstance(value, dict) and "kind" in value and value["kind"] in RULE_KINDS:
+            if _kind(value) in RULE_KINDS:
                 return RULE_KINDS[value["kind"]]
             models = [a for a in args if isinstance(a, type) and issubclass(a, BaseModel)]
             if isinstance(value, dict) and "distribution" in value:

@@ -105,6 +105,9 @@ def _guarded(spec: Path | None, display: _StepDisplay | None = None, note: str =
     except Exception as exc:  # the contract's last line: anything else is a bug
         if display is not None:
             display.end_line()
+        if _signal["received"] is not None:  # e.g. workers killed by the same signal: a consequence, not a bug
+            typer.echo(f"interrupted; {note} ({type(exc).__name__} after the signal)", err=True)
+            raise typer.Exit(_interrupted_code()) from None
         detail = f"{type(exc).__name__}: {exc}".splitlines()[0] if str(exc) else type(exc).__name__
         _fail(InternalError(detail, _spec_hash(spec)))
 
@@ -181,9 +184,10 @@ def generate(
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
-    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's
-    [objective]. Ctrl-C or SIGTERM stops the search and writes the best designs found so far, then
-    exits 130 (Ctrl-C) or 143 (SIGTERM) so a script can tell a cut-short search from a finished one.
+    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's objective.
+
+    Ctrl-C or SIGTERM stops the search and writes the best designs found so far, then exits 130 (Ctrl-C)
+    or 143 (SIGTERM), so a script can tell a cut-short search from a finished one.
 
     Example: seqsolve generate examples/reward_cue.toml -o designs/
     """

@@ -331,6 +331,9 @@ def audit(
 def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
     """Say whether the rules can all hold; if not, name a smallest set that conflicts.
 
+    It solves for one participant, which settles every participant unless a rule ties participants
+    together (participants-differ): the answer then says that part is left to generate.
+
     Example: seqsolve check examples/reward_cue.toml
     """
     from seqsolve.solve import SolveOptions, check_study
@@ -341,7 +344,10 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
         study = load_study(spec)
         result = check_study(study, SolveOptions(time_limit=time_limit, explain_time_limit=time_limit))
     if result.feasible:
-        typer.echo(f"the {len(study.rules)} rule(s) can all hold ({result.method} model, {result.seconds:.2f} s):")
+        typer.echo(
+            f"the {len(study.rules)} rule(s) can all hold {_check_scope(study)} "
+            f"({result.method} model, {result.seconds:.2f} s):"
+        )
         for r, src in zip(study.rules, study.rule_sources):
             typer.echo(f"  - {src}: {r.sentence(study.facts)}")
         raise typer.Exit(0)
@@ -382,6 +388,19 @@ def score(
         "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts; estimation: the same for the FIR model.\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
         "(same counts and timing). cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
+    )
+
+
+def _check_scope(study) -> str:
+    """What check decided, exactly: it solves one participant, which settles every participant unless a
+    rule ties participants together (participants-differ), which it leaves to generate."""
+    across = [src for r, src in zip(study.rules, study.rule_sources) if r.across_participants]
+    n = len(study.participants)
+    if not across or n == 1:
+        return f"for each of the {n} participant(s) (each has the same rules and counts)"
+    return (
+        f"for one participant; whether all {n} participants can also meet {', '.join(across)} "
+        "(which ties participants together) is not decided by check: generate searches for it"
     )
 
 

@@ -240,3 +240,21 @@ def test_sigterm_with_workers_writes_the_best_designs_and_exits_143(tmp_path):
     assert manifest["objective"]["interrupted"] is True
     audit = runner.invoke(app, ["audit", str(spec), str(out / "orderings.csv")])
     assert audit.exit_code == 0, audit.output
+
+
+# ----------------------------------------------------------------------------------------------
+# check says exactly what it decided
+
+
+def test_check_says_it_decides_every_participant_when_no_rule_ties_them(tmp_path):
+    result = runner.invoke(app, ["check", str(spec_file(tmp_path))])
+    assert result.exit_code == 0, result.output
+    assert "can all hold for each of the 2 participant(s)" in result.output
+
+
+def test_check_says_participants_differ_is_left_to_generate(tmp_path):
+    text = BASE + '\n[[rules]]\nkind = "participants-differ"\nmin_differences = 3\n'
+    result = runner.invoke(app, ["check", str(spec_file(tmp_path, text))])
+    assert result.exit_code == 0, result.output
+    assert "for one participant" in result.output and "not decided by check" in result.output
+    assert "rules[1]" in result.output

@@ -68,6 +68,8 @@ class Tally:
         if result.exception is not None and not isinstance(result.exception, SystemExit):
             self._bad("traceback", label, payload, repr(result.exception)[:300])
             return None
+        if result.exit_code in (130, 143):  # the fuzzer itself was interrupted: the CLI's handler took it
+            raise KeyboardInterrupt
         if result.exit_code == 3:
             self._bad("internal error (exit 3)", label, payload, result.output.strip()[:300])
             return 3

@@ -81,6 +81,11 @@ class OutputWriteError(SeqsolveError):
     """The output could not be written (read-only, full disk, busy mount point); the previous output is intact."""
 
 
+class NotFoundError(SolverTimeoutError):
+    """No design was found, and that is no proof that none exists: e.g. participants are designed one
+    after another, so participants-differ may fail for a late participant of a feasible study."""
+
+
 class InternalError(SeqsolveError):
     """A bug in seqsolve: e.g. a produced ordering failed the independent checker.
 

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from ortools.sat.python import cp_model
 
-from seqsolve.errors import InfeasibleError, InternalError, SolverTimeoutError
+from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, SolverTimeoutError
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
@@ -292,7 +292,17 @@ def _solve_with(cp: cp_model.CpModel, assumptions: list, solver: cp_model.CpSolv
 
 def _raise_for(status, study: Study, options: SolveOptions, method: str, earlier=()):
     if status == cp_model.INFEASIBLE:
-        raise InfeasibleError(explain(study, options, list(earlier)))
+        explanation = explain(study, options, list(earlier))
+        tied = [src for i, src, _ in explanation.rules if study.rules[i].across_participants]
+        if earlier and tied:
+            # proven only against the designs already made, not for the study: "not found", never "impossible"
+            raise NotFoundError(
+                f"no design found for participant {len(earlier) + 1} that meets {', '.join(tied)} against the "
+                f"{len(earlier)} participant(s) designed before it. Participants are designed one after another, "
+                "so this does not prove the study impossible (other earlier designs may leave room). Try another "
+                "--seed, fewer participants, or a smaller min_differences."
+            )
+        raise InfeasibleError(explanation)
     if status == cp_model.UNKNOWN:
         raise SolverTimeoutError(
             f"no ordering found within {options.time_limit:g} s (or {options.work_limit:g} units of solver work) "

@@ -258,3 +258,58 @@ def test_check_says_participants_differ_is_left_to_generate(tmp_path):
     assert result.exit_code == 0, result.output
     assert "for one participant" in result.output and "not decided by check" in result.output
     assert "rules[1]" in result.output
+
+
+HADAMARD_SPEC = """
+[study]
+name = "h"
+task = "h"
+participants = 30
+runs = 1
+[[conditions]]
+name = "a"
+trials = 8
+[[conditions]]
+name = "b"
+trials = 8
+[timing]
+tr = 2.0
+soa = 2.0
+[[rules]]
+kind = "participants-differ"
+min_differences = 8
+[objective]
+iterations = 0
+"""
+
+
+def hadamard_orderings() -> str:
+    """30 orderings of 8 a's and 8 b's, pairwise differing in >= 8 of 16 positions, by construction.
+
+    Sylvester's Hadamard matrix H_16 (H_2k = [[H, H], [H, -H]]): any two rows agree in exactly 8
+    places, so rows and their negations form a code of distance 8; every row but the first has eight
+    +1 and eight -1 (textbook fact of Hadamard matrices), which gives 15 rows and 15 negations.
+    """
+    import numpy as np
+
+    h = np.array([[1]])
+    while len(h) < 16:
+        h = np.block([[h, h], [h, -h]])
+    words = [row for row in h[1:]] + [-row for row in h[1:]]
+    lines = ["participant,run,position,condition"]
+    for i, word in enumerate(words, start=1):
+        lines += [f"{i:02d},1,{p},{'a' if v > 0 else 'b'}" for p, v in enumerate(word, start=1)]
+    return "\n".join(lines) + "\n"
+
+
+def test_a_feasible_study_is_never_called_impossible(tmp_path):
+    spec = spec_file(tmp_path, HADAMARD_SPEC)
+    designs = tmp_path / "hadamard.csv"
+    designs.write_text(hadamard_orderings())
+    audit = runner.invoke(app, ["audit", str(spec), str(designs)])
+    assert audit.exit_code == 0, audit.output  # the study is feasible: here are 30 valid designs
+    result = runner.invoke(app, ["generate", str(spec), "-o", str(tmp_path / "out"), "--time-limit", "20"])
+    assert "cannot all hold" not in result.output, result.output
+    if result.exit_code != 0:  # designed one after another, a late participant may find no room
+        assert result.exit_code == 1, result.output
+        assert "does not prove the study impossible" in result.output

@@ -97,7 +97,14 @@ class _Trials:
 
     def add(self, label: str, run: int, pos: int, code: int, onset: float | None, file: int, line: int) -> None:
         index = self.labels.setdefault(label, len(self.labels))
-        for key, value in (("label", index), ("run", run), ("pos", pos), ("code", code), ("file", file), ("line", line)):
+        for key, value in (
+            ("label", index),
+            ("run", run),
+            ("pos", pos),
+            ("code", code),
+            ("file", file),
+            ("line", line),
+        ):
             self.ints[key].append(value)
         self.onset.append(math.nan if onset is None else onset)
 
@@ -129,7 +136,11 @@ class _Trials:
                 gap = int(np.flatnonzero(pos != np.arange(1, b - a + 1))[0]) + 1
                 raise OrderingFileError(
                     where,
-                    [Problem(f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ...")],
+                    [
+                        Problem(
+                            f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ..."
+                        )
+                    ],
                 )
             times = onset[a:b]
             blocks.setdefault(col["label"][a], {})[run] = (
@@ -156,7 +167,9 @@ class _Trials:
 def _check_repeats(col: dict[str, np.ndarray], names: list[str], paths: list[Path]) -> None:
     """A position given twice for one participant and run, reported at its later line (columns sorted)."""
     same = np.flatnonzero(
-        (col["label"][1:] == col["label"][:-1]) & (col["run"][1:] == col["run"][:-1]) & (col["pos"][1:] == col["pos"][:-1])
+        (col["label"][1:] == col["label"][:-1])
+        & (col["run"][1:] == col["run"][:-1])
+        & (col["pos"][1:] == col["pos"][:-1])
     )
     if not len(same):
         return

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from ortools.sat.python import cp_model
 
+from seqsolve.counting import spacing_conflict
 from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, SolverTimeoutError
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
@@ -104,6 +105,9 @@ def generate_orderings(
         When the time limit ran out before an ordering was found or the rules were shown impossible.
     """
     options = options or SolveOptions()
+    counted = spacing_conflict(study)
+    if counted is not None:  # proven by counting: no need to wait for the solver's proof
+        raise InfeasibleError(counted)
     method = choose_method(study, options)
     solver_for = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
     differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
@@ -324,6 +328,9 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     """
     options = options or SolveOptions()
     earlier = earlier or []
+    counted = spacing_conflict(study)
+    if counted is not None:
+        return counted
     method = "positions" if earlier else choose_method(study, options)
     if method == "counts":
         path = _CountsPath(study, options)

@@ -94,7 +94,7 @@ def fuzz_specs(n: int, rng: random.Random, tally: Tally, work: Path, hang: float
         text = spec_variant(data, rng, names)
         spec = work / "spec.toml"
         spec.write_bytes(text.encode("utf-8", errors="replace"))
-        code = tally.run(["check", str(spec), "--time-limit", "2"], hang, f"spec{i}.toml", spec.read_bytes())
+        code = tally.run(["check", str(spec), "--time-limit", "1"], hang, f"spec{i}.toml", spec.read_bytes())
         if code in (0, 1):
             accepted += 1
             if accepted % generate_every == 0:

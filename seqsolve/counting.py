@@ -3,15 +3,51 @@
 Spacing: n trials of a target with at least g other trials between any two take (n - 1)(g + 1) + 1
 positions (the first, then g + 1 for each further one: the pigeonhole principle). Position rules that
 keep the target out of the first or last trials of a run shorten the room it has.
+
+Distinct orderings: a run holding n_1, ..., n_k trials of k conditions has n! / (n_1! ... n_k!)
+orderings (the multinomial coefficient); participants-differ asks every participant for a run of
+their own, so more participants than that cannot all be served.
 """
 
 from __future__ import annotations
 
 from itertools import combinations
+from math import factorial
 
-from seqsolve.rules import MinGap, Position
+from seqsolve.rules import MinGap, ParticipantsDiffer, Position
 from seqsolve.rules.base import Target
 from seqsolve.spec import Study
+
+
+def counting_conflict(study: Study):
+    """The first conflict counting proves (an Explanation of seqsolve.solve), or None."""
+    return spacing_conflict(study) or distinct_conflict(study)
+
+
+def distinct_conflict(study: Study):
+    """participants-differ with more participants than a run has distinct orderings, or None."""
+    from seqsolve.solve import Explanation
+
+    n_people = len(study.participants)
+    for i, rule in enumerate(study.rules):
+        if not isinstance(rule, ParticipantsDiffer) or n_people < 2:
+            continue
+        for run, counts in enumerate(study.facts.counts):
+            held = [(int(c), name) for c, name in zip(counts, study.facts.names) if c > 0]
+            orderings = factorial(sum(c for c, _ in held))
+            for c, _ in held:
+                orderings //= factorial(c)
+            if orderings >= n_people:
+                continue
+            parts = ", ".join(f"{c} x '{name}'" for c, name in held)
+            formula = f"{sum(c for c, _ in held)}! / ({' '.join(f'{c}!' for c, _ in held)})"
+            arithmetic = (
+                f" (run {run + 1} holds {parts}: {formula} = {orderings} distinct ordering(s) "
+                f"for {n_people} participants)"
+            )
+            rows = [(i, study.rule_sources[i], rule.sentence(study.facts) + arithmetic)]
+            return Explanation(True, True, rows, "found by counting, before any solving")
+    return None
 
 
 def spacing_conflict(study: Study):

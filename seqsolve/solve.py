@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from ortools.sat.python import cp_model
 
-from seqsolve.counting import spacing_conflict
+from seqsolve.counting import counting_conflict
 from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, SolverTimeoutError
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
@@ -105,7 +105,7 @@ def generate_orderings(
         When the time limit ran out before an ordering was found or the rules were shown impossible.
     """
     options = options or SolveOptions()
-    counted = spacing_conflict(study)
+    counted = counting_conflict(study)
     if counted is not None:  # proven by counting: no need to wait for the solver's proof
         raise InfeasibleError(counted)
     method = choose_method(study, options)
@@ -328,7 +328,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     """
     options = options or SolveOptions()
     earlier = earlier or []
-    counted = spacing_conflict(study)
+    counted = counting_conflict(study)
     if counted is not None:
         return counted
     method = "positions" if earlier else choose_method(study, options)

@@ -58,3 +58,20 @@ def test_the_counted_bound_is_tight(tmp_path, text):
     # so the count above is no stricter than the truth
     result = check(tmp_path, text)
     assert result.exit_code == 0, result.output
+
+
+def test_more_participants_than_distinct_orderings_is_named_by_counting(tmp_path):
+    # the multinomial coefficient: 4 trials a, a, b, b have 4! / (2! 2!) = 6 orderings, too few for 7
+    text = (
+        '[study]\nname = "t"\ntask = "t"\nparticipants = 7\n'
+        '[[conditions]]\nname = "a"\ntrials = 2\n[[conditions]]\nname = "b"\ntrials = 2\n'
+        '[timing]\ntr = 2.0\nsoa = 2.0\n[[rules]]\nkind = "participants-differ"\n[objective]\niterations = 0\n'
+    )
+    spec = tmp_path / "s.toml"
+    spec.write_text(text)
+    result = runner.invoke(app, ["generate", str(spec), "-o", str(tmp_path / "out")])
+    assert result.exit_code == 1, result.output
+    assert "4! / (2! 2!) = 6 distinct ordering(s) for 7 participants" in result.output
+    assert "cannot all hold" in result.output and not (tmp_path / "out").exists()
+    spec.write_text(text.replace("participants = 7", "participants = 6"))  # exactly enough: all six found
+    assert runner.invoke(app, ["generate", str(spec), "-o", str(tmp_path / "out6")]).exit_code == 0

@@ -1,25 +1,37 @@
 """The command line: thin typer commands, each one call of the Python API.
 
 Precedence of settings: command line > spec file > built-in default.
-Exit codes: 0 success; 1 rules violated, impossible, or not decided in time; 2 unusable input; 3 internal error.
+Exit codes: 0 success; 1 rules violated, impossible, or not decided in time; 2 unusable input or output
+that cannot be written; 3 internal error (a bug in seqsolve); 130 interrupted by Ctrl-C (SIGINT), 143 by
+SIGTERM (generate still writes the best designs found before the stop).
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
+import signal
 import sys
 import time
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
+import click
 import typer
 
-from seqsolve.errors import SeqsolveError
+from seqsolve.errors import InternalError, SeqsolveError
+
+EXIT_CODES = (
+    "Exit codes: 0 success; 1 rules violated, impossible or not decided in time; 2 unusable input, or output "
+    "that cannot be written; 3 a bug in seqsolve; 130 interrupted by Ctrl-C, 143 by SIGTERM (generate still "
+    "writes the best designs found so far)."
+)
 
 app = typer.Typer(
     name="seqsolve",
-    help="Trial orderings that obey your rules by construction, and audits of orderings you already have.",
+    help="Trial orderings that obey your rules by construction, and audits of orderings you already have.\n\n"
+    + EXIT_CODES,
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
@@ -34,6 +46,72 @@ def _fail(exc: SeqsolveError) -> None:
     raise typer.Exit(exc.exit_code)
 
 
+# ----------------------------------------------------------------------------------------------
+# signals and the exit-code contract
+
+_signal = {"received": None}  # the signal that stopped this command, if one did
+
+
+def _on_signal(signum, frame) -> None:
+    """SIGINT and SIGTERM alike: a KeyboardInterrupt in the main process, so the Ctrl-C paths (keep
+    the best designs so far, stop the workers) serve both; the exit code then says which it was."""
+    _signal["received"] = signum
+    raise KeyboardInterrupt
+
+
+def _interrupted_code() -> int:
+    """The shell's convention: 128 + the signal's number (130 for SIGINT, 143 for SIGTERM)."""
+    return 128 + (_signal["received"] or signal.SIGINT)
+
+
+@app.callback()
+def _setup(ctx: typer.Context) -> None:
+    """Install the signal handlers for the command; the previous ones come back when it ends."""
+    _signal["received"] = None
+    try:
+        before = {s: signal.signal(s, _on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+    except ValueError:  # not the main thread (an embedding program): leave its handlers alone
+        return
+    ctx.call_on_close(lambda: [signal.signal(s, h) for s, h in before.items()])
+
+
+def _spec_hash(spec: Path | None) -> str | None:
+    """The spec file's hash for a bug report (of its bytes: the study may not have loaded)."""
+    try:
+        return "sha256:" + hashlib.sha256(spec.read_bytes()).hexdigest() if spec is not None else None
+    except (OSError, ValueError):
+        return None
+
+
+@contextmanager
+def _guarded(spec: Path | None, display: _StepDisplay | None = None, note: str = "nothing was written"):
+    """Every failure within the exit-code contract: our errors 1/2 (3 for InternalError), Ctrl-C 130 and
+    SIGTERM 143, and anything else, which is a bug, one line and exit 3 (no traceback)."""
+    try:
+        yield
+    except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
+        raise
+    except SeqsolveError as exc:
+        if display is not None:
+            display.end_line()
+        if isinstance(exc, InternalError) and exc.spec_hash is None:
+            exc.spec_hash = _spec_hash(spec)
+        _fail(exc)
+    except KeyboardInterrupt:
+        if display is not None:
+            display.end_line()
+        typer.echo(f"interrupted; {note}", err=True)
+        raise typer.Exit(_interrupted_code()) from None
+    except Exception as exc:  # the contract's last line: anything else is a bug
+        if display is not None:
+            display.end_line()
+        if _signal["received"] is not None:  # e.g. workers killed by the same signal: a consequence, not a bug
+            typer.echo(f"interrupted; {note} ({type(exc).__name__} after the signal)", err=True)
+            raise typer.Exit(_interrupted_code()) from None
+        detail = f"{type(exc).__name__}: {exc}".splitlines()[0] if str(exc) else type(exc).__name__
+        _fail(InternalError(detail, _spec_hash(spec)))
+
+
 def _progress(started: float):
     def show(done: int, total: int, label: str) -> None:
         if done < total:
@@ -42,20 +120,6 @@ def _progress(started: float):
             )
 
     return show
-
-
-@contextmanager
-def _long_command(display: _StepDisplay):
-    """Clear errors (exit 2/1) and Ctrl-C outside any search (exit 130) for a command with a status line."""
-    try:
-        yield
-    except SeqsolveError as exc:
-        display.end_line()
-        _fail(exc)
-    except KeyboardInterrupt:
-        display.end_line()
-        typer.echo("interrupted; nothing was written", err=True)
-        raise typer.Exit(130) from None
 
 
 class _StepDisplay:
@@ -100,7 +164,9 @@ def generate(
     force: Annotated[bool, typer.Option(help="Replace an existing output folder.")] = False,
     iterations: Annotated[
         int | None,
-        typer.Option(min=0, help="Search rounds per participant (overrides objective.iterations; 0: none)."),
+        typer.Option(
+            min=0, max=1_000_000, help="Search rounds per participant (overrides objective.iterations; 0: none)."
+        ),
     ] = None,
     budget: Annotated[
         float | None,
@@ -110,17 +176,24 @@ def generate(
             "with --iterations: whichever ends first. Results then depend on machine speed.",
         ),
     ] = None,
-    front: Annotated[int, typer.Option(min=0, help="Also write front.tsv: the trade-off at this many weightings.")] = 0,
+    front: Annotated[
+        int, typer.Option(min=0, max=1000, help="Also write front.tsv: the trade-off at this many weightings.")
+    ] = 0,
     workers: Annotated[
-        int, typer.Option(min=1, help="Processes searching participants side by side; the designs do not depend on it.")
+        int,
+        typer.Option(
+            min=1, max=1024, help="Processes searching participants side by side; the designs do not depend on it."
+        ),
     ] = 1,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
-    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's
-    [objective]. Ctrl-C stops the search and writes the best designs found so far.
+    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's objective.
+
+    Ctrl-C or SIGTERM stops the search and writes the best designs found so far, then exits 130 (Ctrl-C)
+    or 143 (SIGTERM), so a script can tell a cut-short search from a finished one.
 
     Example: seqsolve generate examples/reward_cue.toml -o designs/
     """
@@ -135,9 +208,11 @@ def generate(
     if front == 1:
         typer.echo("error: --front needs at least 2 points (or 0 for none)", err=True)
         raise typer.Exit(2)
+    _check_seconds("--time-limit", time_limit)
+    _check_seconds("--budget", budget)
     started = time.perf_counter()
     display = _StepDisplay()
-    with _long_command(display):
+    with _guarded(spec, display):
         study = load_study(spec, seed=seed)
         steps = study.spec.objective.iterations if iterations is None else iterations
         if budget is not None and iterations is None:
@@ -162,7 +237,21 @@ def generate(
             on_step=display,
             front=front,
         )
-    display.end_line()
+        display.end_line()
+        _report_designs(designs, study, out, started)
+    if designs.interrupted or _signal["received"] is not None:
+        # the best designs so far were written; a script can still tell a cut-short search from a finished one
+        raise typer.Exit(_interrupted_code())
+
+
+def _check_seconds(option: str, value: float | None) -> None:
+    """A time option must be a finite number of seconds (inf or nan would never stop or never start)."""
+    if value is not None and not (value == value and 0 <= value <= 1e7):
+        typer.echo(f"error: {option} must be a number of seconds from 0 to 10,000,000; got {value}", err=True)
+        raise typer.Exit(2)
+
+
+def _report_designs(designs, study, out: Path, started: float) -> None:
     if designs and designs[0].figures is not None:
         typer.echo(_designs_table(designs))
     for note in designs.notes:
@@ -228,11 +317,9 @@ def audit(
     from seqsolve.audit import audit as run_audit
     from seqsolve.spec import load_study
 
-    try:
+    with _guarded(spec):
         study = load_study(spec)
         report = run_audit(study, files)
-    except SeqsolveError as exc:
-        _fail(exc)
     if as_json:
         typer.echo(
             json.dumps(
@@ -256,18 +343,23 @@ def audit(
 def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
     """Say whether the rules can all hold; if not, name a smallest set that conflicts.
 
+    It solves for one participant, which settles every participant unless a rule ties participants
+    together (participants-differ): the answer then says that part is left to generate.
+
     Example: seqsolve check examples/reward_cue.toml
     """
     from seqsolve.solve import SolveOptions, check_study
     from seqsolve.spec import load_study
 
-    try:
+    _check_seconds("--time-limit", time_limit)
+    with _guarded(spec):
         study = load_study(spec)
         result = check_study(study, SolveOptions(time_limit=time_limit, explain_time_limit=time_limit))
-    except SeqsolveError as exc:
-        _fail(exc)
     if result.feasible:
-        typer.echo(f"the {len(study.rules)} rule(s) can all hold ({result.method} model, {result.seconds:.2f} s):")
+        typer.echo(
+            f"the {len(study.rules)} rule(s) can all hold {_check_scope(study)} "
+            f"({result.method} model, {result.seconds:.2f} s):"
+        )
         for r, src in zip(study.rules, study.rule_sources):
             typer.echo(f"  - {src}: {r.sentence(study.facts)}")
         raise typer.Exit(0)
@@ -293,13 +385,11 @@ def score(
     from seqsolve.score import score_files
     from seqsolve.spec import load_study
 
-    try:
+    with _guarded(spec):
         study = load_study(spec)
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             rows = score_files(study, files, with_references=references)
-    except SeqsolveError as exc:
-        _fail(exc)
     for w in caught:
         typer.echo(f"warning: {w.message}", err=True)
     if as_json:
@@ -310,6 +400,19 @@ def score(
         "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts; estimation: the same for the FIR model.\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
         "(same counts and timing). cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
+    )
+
+
+def _check_scope(study) -> str:
+    """What check decided, exactly: it solves one participant, which settles every participant unless a
+    rule ties participants together (participants-differ), which it leaves to generate."""
+    across = [src for r, src in zip(study.rules, study.rule_sources) if r.across_participants]
+    n = len(study.participants)
+    if not across or n == 1:
+        return f"for each of the {n} participant(s) (each has the same rules and counts)"
+    return (
+        f"for one participant; whether all {n} participants can also meet {', '.join(across)} "
+        "(which ties participants together) is not decided by check: generate searches for it"
     )
 
 
@@ -357,10 +460,13 @@ def _score_table(rows) -> str:
 def compare(
     spec: SpecArg,
     plot: Annotated[Path | None, typer.Option(help="Also draw the plane to this .png or .svg file.")] = None,
-    samples: Annotated[int, typer.Option(min=1, help="Random valid designs sampled from CP-SAT.")] = 200,
-    front: Annotated[int, typer.Option(min=0, help="seqsolve's points, from detection to estimation (0: none).")] = 5,
+    samples: Annotated[int, typer.Option(min=1, max=100_000, help="Random valid designs sampled from CP-SAT.")] = 200,
+    front: Annotated[
+        int, typer.Option(min=0, max=1000, help="seqsolve's points, from detection to estimation (0: none).")
+    ] = 5,
     iterations: Annotated[
-        int | None, typer.Option(min=0, help="Search steps per front point (default: objective.iterations).")
+        int | None,
+        typer.Option(min=0, max=1_000_000, help="Search steps per front point (default: objective.iterations)."),
     ] = None,
     force: Annotated[bool, typer.Option(help="Replace an existing plot file.")] = False,
     as_json: Annotated[bool, typer.Option("--json", help="Print every point as JSON.")] = False,
@@ -382,7 +488,7 @@ def compare(
         typer.echo("error: --front needs at least 2 points (or 0 for none)", err=True)
         raise typer.Exit(2)
     display = _StepDisplay()
-    with _long_command(display):
+    with _guarded(spec, display):
         if plot is not None:
             check_plot_path(plot, force)
         study = load_study(spec)

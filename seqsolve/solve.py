@@ -14,7 +14,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from ortools.sat.python import cp_model
 
-from seqsolve.errors import InfeasibleError, InternalError, SolverTimeoutError
+from seqsolve.counting import counting_conflict
+from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, SolverTimeoutError
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
@@ -104,6 +105,9 @@ def generate_orderings(
         When the time limit ran out before an ordering was found or the rules were shown impossible.
     """
     options = options or SolveOptions()
+    counted = counting_conflict(study)
+    if counted is not None:  # proven by counting: no need to wait for the solver's proof
+        raise InfeasibleError(counted)
     method = choose_method(study, options)
     solver_for = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
     differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
@@ -292,7 +296,17 @@ def _solve_with(cp: cp_model.CpModel, assumptions: list, solver: cp_model.CpSolv
 
 def _raise_for(status, study: Study, options: SolveOptions, method: str, earlier=()):
     if status == cp_model.INFEASIBLE:
-        raise InfeasibleError(explain(study, options, list(earlier)))
+        explanation = explain(study, options, list(earlier))
+        tied = [src for i, src, _ in explanation.rules if study.rules[i].across_participants]
+        if earlier and tied:
+            # proven only against the designs already made, not for the study: "not found", never "impossible"
+            raise NotFoundError(
+                f"no design found for participant {len(earlier) + 1} that meets {', '.join(tied)} against the "
+                f"{len(earlier)} participant(s) designed before it. Participants are designed one after another, "
+                "so this does not prove the study impossible (other earlier designs may leave room). Try another "
+                "--seed, fewer participants, or a smaller min_differences."
+            )
+        raise InfeasibleError(explanation)
     if status == cp_model.UNKNOWN:
         raise SolverTimeoutError(
             f"no ordering found within {options.time_limit:g} s (or {options.work_limit:g} units of solver work) "
@@ -314,6 +328,9 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     """
     options = options or SolveOptions()
     earlier = earlier or []
+    counted = counting_conflict(study)
+    if counted is not None:
+        return counted
     method = "positions" if earlier else choose_method(study, options)
     if method == "counts":
         path = _CountsPath(study, options)

@@ -9,6 +9,7 @@ import difflib
 import hashlib
 import json
 import math
+import re
 import tomllib
 import types
 import typing
@@ -17,9 +18,10 @@ from pathlib import Path
 from typing import Annotated, Literal, Union
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, ValidationInfo, field_validator, model_validator
 
-from seqsolve.errors import Problem, SpecError
+from seqsolve.errors import Problem, SpecError, shorten
+from seqsolve.io import limits
 from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
 
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]*$"
@@ -28,43 +30,89 @@ LABEL_PATTERN = r"^[A-Za-z0-9]+$"  # BIDS labels are alphanumeric
 MISSING_MARKERS = {"na", "nan", "null", "none", "n/a", "nat", "true", "false"}
 
 
+NAME_CHARS = 64  # condition, factor, level and participant names
+TEXT_CHARS = 200  # titles and labels
+CONTRAST_CHARS = 1000  # one contrast expression
+
+
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # inf and NaN are refused everywhere: no figure of a design can be computed from them
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+
+def _seconds_within_limit(value: float | None, info: ValidationInfo) -> float | None:
+    """A time in seconds at most the SECONDS limit (a slip such as ms for s, or 1e300)."""
+    if value is not None and value > limits.SECONDS.value():
+        raise ValueError(f"{value:g} s is too long; {limits.SECONDS.hint()}")
+    return value
+
+
+def _step_at_least_limit(value: float | None, info: ValidationInfo) -> float | None:
+    """A time step of at least SMALLEST_STEP ms: finer ones only multiply the arrays' sizes."""
+    smallest = limits.SMALLEST_STEP.value() / 1000
+    if value is not None and value < smallest - 1e-12:
+        raise ValueError(f"{value:g} s is below {smallest:g} s; {limits.SMALLEST_STEP.hint()}")
+    return value
+
+
+def _seconds(*fields: str):
+    return field_validator(*fields)(_seconds_within_limit)
+
+
+def _steps(*fields: str):
+    return field_validator(*fields)(_step_at_least_limit)
 
 
 class StudySection(Strict):
     """[study]: who and how much."""
 
-    name: str = Field(min_length=1, description="A human-readable title.")
-    task: str = Field(pattern=LABEL_PATTERN, description="BIDS task label (letters and digits), used in file names.")
-    participants: int | list[Annotated[str, Field(pattern=LABEL_PATTERN)]] = Field(
+    name: str = Field(min_length=1, max_length=TEXT_CHARS, description="A human-readable title.")
+    task: str = Field(
+        pattern=LABEL_PATTERN,
+        max_length=NAME_CHARS,
+        description="BIDS task label (letters and digits), used in file names.",
+    )
+    participants: int | list[Annotated[str, Field(pattern=LABEL_PATTERN, max_length=NAME_CHARS)]] = Field(
         description="How many participants (labelled 01, 02, ...) or a list of BIDS labels."
     )
     runs: int = Field(default=1, ge=1, le=100, description="Runs per participant.")
     trials_per_run: int | None = Field(default=None, ge=1, description="Needed when conditions give a 'share'.")
-    seed: int = Field(default=0, ge=0, description="Master seed; each participant's seed derives from it.")
+    seed: int = Field(default=0, ge=0, lt=2**63, description="Master seed; each participant's seed derives from it.")
 
     @field_validator("participants")
     @classmethod
     def _some(cls, v):
-        if isinstance(v, int) and not 1 <= v <= 10000:
-            raise ValueError("give between 1 and 10000 participants")
+        most = int(limits.PARTICIPANTS.value())
+        if isinstance(v, int) and not 1 <= v <= most:
+            raise ValueError(f"give between 1 and {most:,} participants ({limits.PARTICIPANTS.hint()})")
         if isinstance(v, list) and (not v or len(set(v)) != len(v)):
             raise ValueError("participant labels must be a non-empty list without repeats")
+        if isinstance(v, list) and len(v) > most:
+            raise ValueError(f"{len(v):,} participant labels; {limits.PARTICIPANTS.hint()}")
+        return v
+
+    @field_validator("trials_per_run")
+    @classmethod
+    def _run_within_limit(cls, v):
+        if v is not None and v > limits.TRIALS_PER_RUN.value():
+            raise ValueError(f"{v:,} trials per run; {limits.TRIALS_PER_RUN.hint()}")
         return v
 
 
 class Condition(Strict):
     """[[conditions]]: one trial type."""
 
-    name: str = Field(pattern=NAME_PATTERN, description="Letters, digits and '_', starting with a letter.")
+    name: str = Field(
+        pattern=NAME_PATTERN, max_length=NAME_CHARS, description="Letters, digits and '_', starting with a letter."
+    )
     trials: int | None = Field(default=None, ge=0, description="Trials of this condition in each run.")
     share: float | None = Field(default=None, gt=0, le=1, description="Or: fraction of study.trials_per_run.")
     duration: float | None = Field(default=None, gt=0, description="Trial duration in seconds (default: the timing's).")
     baseline: bool = Field(default=False, description="Mark the fixation / null condition.")
-    levels: dict[Annotated[str, Field(pattern=NAME_PATTERN)], Annotated[str, Field(pattern=NAME_PATTERN)]] = Field(
-        default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}."
-    )
+    levels: dict[
+        Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
+        Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
+    ] = Field(default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}.")
 
     @field_validator("name")
     @classmethod
@@ -81,10 +129,21 @@ class Condition(Strict):
             raise ValueError("give exactly one of 'trials' (per run) or 'share' (of study.trials_per_run)")
         return self
 
+    _duration_bounded = _seconds("duration")
+
+    @field_validator("trials")
+    @classmethod
+    def _run_within_limit(cls, v):
+        if v is not None and v > limits.TRIALS_PER_RUN.value():
+            raise ValueError(f"{v:,} trials per run; {limits.TRIALS_PER_RUN.hint()}")
+        return v
+
 
 class FixedGap(Strict):
     distribution: Literal["fixed"]
     value: float = Field(ge=0, description="Seconds.")
+
+    _value_bounded = _seconds("value")
 
 
 class _Bounded(Strict):
@@ -99,6 +158,8 @@ class _Bounded(Strict):
             raise ValueError("'max' must be greater than 'min'")
         return self
 
+    _bounded = _seconds("min", "max")
+
 
 class UniformGap(_Bounded):
     distribution: Literal["uniform"]
@@ -109,16 +170,20 @@ class ExponentialGap(_Bounded):
     distribution: Literal["exponential"]
     mean: float = Field(gt=0, description="Mean of the exponential before truncation, in seconds.")
 
+    _mean_bounded = _seconds("mean")
+
 
 class ChoiceGap(Strict):
     distribution: Literal["choice"]
-    values: list[Annotated[float, Field(ge=0)]] = Field(min_length=1)
-    weights: list[Annotated[float, Field(gt=0)]] | None = None
+    values: list[Annotated[float, Field(ge=0)]] = Field(min_length=1, max_length=10_000)
+    weights: list[Annotated[float, Field(gt=0, le=1e6)]] | None = Field(default=None, max_length=10_000)
 
     @model_validator(mode="after")
     def _same_length(self):
         if self.weights is not None and len(self.weights) != len(self.values):
             raise ValueError("'weights' needs one entry per value")
+        if max(self.values) > limits.SECONDS.value():
+            raise ValueError(f"a value of {max(self.values):g} s; {limits.SECONDS.hint()}")
         return self
 
 
@@ -145,12 +210,27 @@ class Timing(Strict):
             raise ValueError("with 'iti', give 'trial_duration' (conditions may override it with 'duration')")
         return self
 
+    _bounded = _seconds("tr", "soa", "trial_duration", "grid", "lead_in", "lead_out")
+    _fine_enough = _steps("grid", "tr")
+
 
 class CustomHRF(Strict):
     """A response shape given as samples."""
 
-    samples: list[float] = Field(min_length=2, description="Response values from time 0 on.")
+    samples: list[Annotated[float, Field(ge=-1e6, le=1e6)]] = Field(
+        min_length=2, max_length=100_000, description="Response values from time 0 on."
+    )
     step: float = Field(gt=0, description="Seconds between samples.")
+
+    _fine_enough = _steps("step")
+
+    @model_validator(mode="after")
+    def _bounded(self):
+        if not any(self.samples):
+            raise ValueError("every sample is 0: a response of this shape cannot be detected")
+        if self.step * len(self.samples) > limits.SECONDS.value():
+            raise ValueError(f"the response lasts {self.step * len(self.samples):g} s; {limits.SECONDS.hint()}")
+        return self
 
 
 class Analysis(Strict):
@@ -166,7 +246,7 @@ class Analysis(Strict):
     )
     drift_degree: int = Field(default=0, ge=0, le=6, description="Polynomial drift terms per run beyond the intercept.")
     ar1: float = Field(default=0.0, ge=0, lt=1, description="AR(1) coefficient of the noise, for prewhitening.")
-    contrasts: list[str] | Literal["each-vs-baseline", "all-pairs"] = Field(
+    contrasts: Annotated[list[str], Field(max_length=1000)] | Literal["each-vs-baseline", "all-pairs"] = Field(
         default="each-vs-baseline", description="Expressions like 'gain - loss', or a named set."
     )
     fir_window: float = Field(default=20.0, gt=0, description="Length of the estimated response (FIR), in seconds.")
@@ -174,6 +254,25 @@ class Analysis(Strict):
     criterion: Literal["A", "D"] = Field(
         default="A", description="A-optimality (1/trace) or D-optimality (determinant)."
     )
+
+    _fine_enough = _steps("resolution", "fir_step")
+    _bounded_seconds = _seconds("sample_offset", "high_pass_cutoff", "fir_window", "fir_step")
+
+    @field_validator("contrasts")
+    @classmethod
+    def _short_contrasts(cls, v):
+        for i, text in enumerate([] if isinstance(v, str) else v, start=1):
+            if len(text) > CONTRAST_CHARS:
+                raise ValueError(f"contrast {i} has {len(text):,} characters; at most {CONTRAST_CHARS} are read")
+        return v
+
+    @model_validator(mode="after")
+    def _bounded(self):
+        if self.fir_step is not None and self.fir_window / self.fir_step > limits.FIR_BINS.value():
+            raise ValueError(
+                f"fir_window / fir_step = {self.fir_window / self.fir_step:,.0f} bins; {limits.FIR_BINS.hint()}"
+            )
+        return self
 
 
 class Objective(Strict):
@@ -185,16 +284,22 @@ class Objective(Strict):
     weighted mean.
     """
 
-    detection: float = Field(default=1.0, ge=0, description="Weight of detection (relative to the best block design).")
-    estimation: float = Field(default=1.0, ge=0, description="Weight of estimation (relative to random orderings).")
-    counterbalance: float = Field(default=0.0, ge=0, description="Weight of first-order counterbalancing.")
+    detection: float = Field(
+        default=1.0, ge=0, le=1e6, description="Weight of detection (relative to the best block design)."
+    )
+    estimation: float = Field(
+        default=1.0, ge=0, le=1e6, description="Weight of estimation (relative to random orderings)."
+    )
+    counterbalance: float = Field(default=0.0, ge=0, le=1e6, description="Weight of first-order counterbalancing.")
     iterations: int = Field(
         default=30,
         ge=0,
         le=1_000_000,
         description="Search rounds per participant (each about 0.1-0.5 s: thousands of moves); 0: no search.",
     )
-    stall: int = Field(default=10, ge=1, description="Stop a participant's search after this many rounds without gain.")
+    stall: int = Field(
+        default=10, ge=1, le=1_000_000, description="Stop a participant's search after this many rounds without gain."
+    )
     spread: float = Field(
         default=0.05, ge=0, lt=1, description="Every participant's score within this fraction of the best one's."
     )
@@ -217,10 +322,12 @@ class Spec(Strict):
     """The whole spec file."""
 
     study: StudySection
-    conditions: list[Condition] = Field(min_length=2)
+    conditions: list[Condition] = Field(min_length=2, max_length=1000)
     timing: Timing
-    include: list[str] = Field(default_factory=list, description="Rule sets from rules/ (name or .toml path).")
-    rules: list[AnyRule] = Field(default_factory=list)
+    include: list[Annotated[str, Field(max_length=1000)]] = Field(
+        default_factory=list, max_length=100, description="Rule sets from rules/ (name or .toml path)."
+    )
+    rules: list[AnyRule] = Field(default_factory=list, max_length=10_000)
     analysis: Analysis = Field(default_factory=Analysis)
     objective: Objective = Field(default_factory=Objective)
 
@@ -304,15 +411,26 @@ def participant_labels(participants: int | list[str]) -> tuple[str, ...]:
 
 
 def _read_toml(path: Path) -> dict:
-    if not path.exists():
-        raise SpecError(str(path), [Problem("", "file not found; give the path of a .toml spec (see examples/)")])
     try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
+        if not path.is_file():
+            raise SpecError(str(path), [Problem("", "file not found; give the path of a .toml spec (see examples/)")])
+        size = path.stat().st_size
+        if size > limits.SPEC_KB.value() * 1000:
+            raise SpecError(str(path), [Problem("", f"the file has {size / 1000:,.0f} kB; {limits.SPEC_KB.hint()}")])
+        text = path.read_text(encoding="utf-8")
     except UnicodeDecodeError:
         raise SpecError(str(path), [Problem("", "not a text file in UTF-8; a spec is a TOML text file")]) from None
+    except (OSError, ValueError) as exc:
+        raise SpecError(str(path), [Problem("", f"cannot be read ({getattr(exc, 'strerror', None) or exc})")]) from None
+    try:
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(
             str(path), [Problem("", f"TOML syntax error: {exc}. Check quotes, '=' and [section] headers.")]
+        ) from None
+    except RecursionError:
+        raise SpecError(
+            str(path), [Problem("", "arrays or tables nested too deeply; a spec nests a few levels")]
         ) from None
 
 
@@ -320,7 +438,19 @@ def _validate(model: type[BaseModel], data: dict, source: str):
     try:
         return model.model_validate(data)
     except ValidationError as exc:
-        raise SpecError(source, [_problem(model, data, e) for e in exc.errors()]) from None
+        errors = exc.errors()
+        # a table where a name is also allowed (hrf): the name's "should be 'a' or 'b'" says nothing useful
+        shown = [e for e in errors if not (e["type"] == "literal_error" and isinstance(e.get("input"), dict))]
+        raise SpecError(source, [_problem_or_plain(model, data, e) for e in shown or errors]) from None
+
+
+def _problem_or_plain(model: type[BaseModel], data: dict, err: dict) -> Problem:
+    """The teaching message of _problem; pydantic's own if the value is too odd for it (a table as a
+    'kind', ...): a strange spec must still get its field named, never a crash while explaining."""
+    try:
+        return _problem(model, data, err)
+    except Exception:  # noqa: BLE001 - the plain message is always available
+        return Problem(_path(list(err["loc"])), f"{err['msg']}; got {shorten(err.get('input'))}")
 
 
 def _gather_rules(spec: Spec, path: Path) -> tuple[list[Rule], list[str]]:
@@ -332,7 +462,12 @@ def _gather_rules(spec: Spec, path: Path) -> tuple[list[Rule], list[str]]:
             known = sorted({p.stem for d in bundled_rule_dirs() if d.is_dir() for p in d.glob("*.toml")})
             raise SpecError(
                 str(path),
-                [Problem(f"include[{i}]", f"no rule set '{name}'; give a .toml path or one of: {', '.join(known)}")],
+                [
+                    Problem(
+                        f"include[{i}]",
+                        f"no rule set {shorten(name)}; give a .toml path or one of: {', '.join(known)}",
+                    )
+                ],
             )
         ruleset = _validate(RuleSet, _read_toml(file), str(file))
         rules.extend(ruleset.rules)
@@ -342,14 +477,26 @@ def _gather_rules(spec: Spec, path: Path) -> tuple[list[Rule], list[str]]:
     return rules, sources
 
 
+BUNDLED_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_-]{0,63}$")
+
+
 def _find_rule_set(name: str, spec_path: Path) -> Path | None:
-    if name.endswith(".toml"):
-        p = (spec_path.parent / name).resolve()
-        return p if p.is_file() else None
-    for d in bundled_rule_dirs():
-        p = d / f"{name}.toml"
-        if p.is_file():
-            return p
+    """A .toml path (relative to the spec) or the plain name of a bundled set; a bare name never
+    leaves the bundled folders (no '/', no '..')."""
+    if "\x00" in name:
+        return None
+    try:
+        if name.endswith(".toml"):
+            p = (spec_path.parent / name).resolve()
+            return p if p.is_file() else None
+        if not BUNDLED_NAME.match(name):
+            return None
+        for d in bundled_rule_dirs():
+            p = d / f"{name}.toml"
+            if p.is_file():
+                return p
+    except (OSError, ValueError):  # a name the file system cannot take
+        return None
     return None
 
 
@@ -375,24 +522,88 @@ def _check_references(spec: Spec, rules: list[Rule], sources: list[str]) -> list
                     problems.append(
                         Problem(
                             where,
-                            f"no factor '{factor}'{_suggest(factor, levels)}; factors come from conditions' 'levels'",
+                            f"no factor {shorten(factor)}{_suggest(factor, levels)}; factors come from conditions' 'levels'",
                         )
                     )
                 elif level not in levels[factor]:
                     problems.append(
                         Problem(
-                            where, f"factor '{factor}' has no level '{level}'; its levels: {', '.join(levels[factor])}"
+                            where,
+                            f"factor '{factor}' has no level {shorten(level)}; its levels: {', '.join(levels[factor])}",
                         )
                     )
             elif item not in names:
                 problems.append(
-                    Problem(where, f"unknown condition '{item}'{_suggest(item, names)}; conditions: {', '.join(names)}")
+                    Problem(
+                        where,
+                        f"unknown condition {shorten(item)}{_suggest(item, names)}; conditions: {', '.join(names)}",
+                    )
                 )
+    problems += _check_rule_values(rules, sources)
     problems += _check_contrasts(spec)
     if not problems and all(c.share is None for c in spec.conditions):
         if sum(c.trials for c in spec.conditions) == 0:
             problems.append(Problem("conditions", "every condition has 0 trials; give some trials"))
+        problems += _check_sizes(spec)
     return problems
+
+
+def _check_rule_values(rules: list[Rule], sources: list[str]) -> list[Problem]:
+    """Numbers in rules within what a participant's trials allow, texts short (the rule kinds' own
+    models check signs and kinds; this bounds what would only make the solver's model huge or invalid)."""
+    most = int(limits.TRIALS_PER_PARTICIPANT.value())
+    out = []
+    for rule, where in zip(rules, sources):
+        for key, value in rule.model_dump().items():
+            values = value if isinstance(value, list) else [value]
+            if any(isinstance(v, int) and not isinstance(v, bool) and abs(v) > most for v in values):
+                out.append(
+                    Problem(f"{where}.{key}", f"a number above {most:,}; {limits.TRIALS_PER_PARTICIPANT.hint()}")
+                )
+            if any(isinstance(v, str) and len(v) > TEXT_CHARS for v in values):
+                out.append(Problem(f"{where}.{key}", f"a text longer than {TEXT_CHARS} characters"))
+    return out
+
+
+def _check_sizes(spec: Spec) -> list[Problem]:
+    """Trials per participant, and a run's length in volumes and fine-grid samples, within the limits."""
+    per_run = sum(c.trials for c in spec.conditions)
+    total = per_run * spec.study.runs
+    out = []
+    if per_run > limits.TRIALS_PER_RUN.value():
+        out.append(Problem("conditions", f"{per_run:,} trials per run; {limits.TRIALS_PER_RUN.hint()}"))
+    if total > limits.TRIALS_PER_PARTICIPANT.value():
+        out.append(Problem("conditions", f"{total:,} trials per participant; {limits.TRIALS_PER_PARTICIPANT.hint()}"))
+    seconds = _run_seconds(spec, per_run)
+    t = spec.timing
+    volumes = t.volumes if t.volumes is not None else seconds / t.tr
+    if volumes > limits.VOLUMES_PER_RUN.value():
+        out.append(Problem("timing", f"a run lasts about {volumes:,.0f} volumes; {limits.VOLUMES_PER_RUN.hint()}"))
+    samples = max(seconds, (t.volumes or 0) * t.tr) / spec.analysis.resolution
+    if samples > limits.FINE_SAMPLES_PER_RUN.value():
+        out.append(
+            Problem(
+                "analysis.resolution",
+                f"a run lasts about {samples:,.0f} samples of {spec.analysis.resolution:g} s; "
+                f"{limits.FINE_SAMPLES_PER_RUN.hint()}",
+            )
+        )
+    return out
+
+
+def _run_seconds(spec: Spec, n_trials: int) -> float:
+    """An upper estimate of one run's length in seconds: trials at the longest spacing the timing allows."""
+    t = spec.timing
+    longest = max([c.duration or 0.0 for c in spec.conditions] + [t.trial_duration or 0.0])
+    if t.soa is not None:
+        spacing = max(t.soa, longest)
+    else:
+        gap = t.iti
+        widest = (
+            gap.value if gap.distribution == "fixed" else max(gap.values) if gap.distribution == "choice" else gap.max
+        )
+        spacing = longest + widest
+    return t.lead_in + n_trials * spacing + t.lead_out
 
 
 def _check_contrasts(spec: Spec) -> list[Problem]:
@@ -407,6 +618,8 @@ def _check_contrasts(spec: Spec) -> list[Problem]:
             parse_contrast(text, modelled)
         except ContrastSyntaxError as exc:
             out.append(Problem(f"analysis.contrasts[{i}]", str(exc)))
+        except RecursionError:
+            out.append(Problem(f"analysis.contrasts[{i}]", "parentheses nested too deeply"))
     return out
 
 
@@ -466,15 +679,19 @@ def _problem(model: type[BaseModel], data: dict, err: dict) -> Problem:
         hint = ""
         if len(loc) > 1 and loc[-1] in Spec.model_fields:
             hint = f" ('{loc[-1]}' is a top-level key: in TOML it must come before the first [section] header)"
-        return Problem(
-            where, f"unknown key '{loc[-1]}'{_suggest(str(loc[-1]), known)}; allowed keys: {', '.join(known)}{hint}"
-        )
+        key = str(loc[-1])
+        suggest = _suggest(key, known) if len(key) <= TEXT_CHARS else ""
+        return Problem(where, f"unknown key {shorten(key)}{suggest}; allowed keys: {', '.join(known)}{hint}")
     if kind in ("union_tag_invalid", "union_tag_not_found"):
         tag = err.get("ctx", {}).get("discriminator", "'kind'").strip("'")
         if tag == "kind":
             given = err.get("ctx", {}).get("tag")
             kinds = sorted(RULE_KINDS)
-            head = f"unknown rule kind '{given}'{_suggest(str(given), kinds)}" if given else "every rule needs a 'kind'"
+            head = (
+                f"unknown rule kind {shorten(given)}{_suggest(str(given)[:TEXT_CHARS], kinds)}"
+                if given
+                else "every rule needs a 'kind'"
+            )
             return Problem(where, f"{head}; kinds: {', '.join(kinds)} (catalogue: rules/README.md)")
         return Problem(where, f"{err['msg']}; 'distribution' is one of fixed, uniform, exponential, choice")
     if kind == "missing":
@@ -486,7 +703,7 @@ def _problem(model: type[BaseModel], data: dict, err: dict) -> Problem:
         msg = msg.removeprefix("Value error, ")
     given = err.get("input")
     if not isinstance(given, (dict, list)) and kind != "value_error":
-        msg = f"{msg}; got {given!r}"
+        msg = f"{msg}; got {shorten(given)}"
     return Problem(where, msg)
 
 
@@ -497,10 +714,11 @@ def _path(loc: list) -> str:
             out += f"[{part + 1}]"
         elif part in RULE_KINDS or part in ("fixed", "uniform", "exponential", "choice"):
             continue  # the union tag pydantic inserts
-        elif part in ("int", "list[constrained-str]", "str"):
-            continue
+        elif part in ("int", "list[constrained-str]", "str", "CustomHRF") or "[" in str(part):
+            continue  # a union member's name (e.g. "function-after[_bounded(), CustomHRF]")
         else:
-            out += ("." if out else "") + str(part)
+            text = str(part) if len(str(part)) <= 60 else str(part)[:40] + "..."
+            out += ("." if out else "") + text
     return out
 
 
@@ -522,10 +740,16 @@ def _model_at(model, data, loc: list):
         if isinstance(part, int):
             current = _unwrap(_list_item(current), None)
             value = value[part] if isinstance(value, list) and part < len(value) else None
-            if current is None and isinstance(value, dict) and value.get("kind") in RULE_KINDS:
+            if current is None and _kind(value) in RULE_KINDS:
                 current = RULE_KINDS[value["kind"]]
     current = _unwrap(current, value)
     return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _kind(value) -> str | None:
+    """A rule's 'kind' when it is a string (a fuzzed spec may put a table or a list there)."""
+    kind = value.get("kind") if isinstance(value, dict) else None
+    return kind if isinstance(kind, str) else None
 
 
 def _unwrap(tp, value):
@@ -536,7 +760,7 @@ def _unwrap(tp, value):
             tp = typing.get_args(tp)[0]
         elif origin is Union or origin is types.UnionType:
             args = [a for a in typing.get_args(tp) if a is not type(None)]
-            if isinstance(value, dict) and "kind" in value and value["kind"] in RULE_KINDS:
+            if _kind(value) in RULE_KINDS:
                 return RULE_KINDS[value["kind"]]
             models = [a for a in args if isinstance(a, type) and issubclass(a, BaseModel)]
             if isinstance(value, dict) and "distribution" in value:
@@ -560,6 +784,8 @@ def _list_item(tp):
 
 
 def _suggest(word: str, options) -> str:
+    if len(word) > TEXT_CHARS:  # nothing close to a name, and difflib's time grows with the length
+        return ""
     close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.6)
     return f" (did you mean '{close[0]}'?)" if close else ""
 

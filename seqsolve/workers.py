@@ -64,7 +64,9 @@ _PARENT = None  # the main process's pid: a worker whose parent died stops too
 def _start_worker(steps, stop) -> None:
     global _STEPS, _STOP, _PARENT
     _STEPS, _STOP, _PARENT = steps, stop, os.getppid()
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides; see the module docstring
+    # the main process decides (a termination signal to the whole group included); see the module docstring
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
 
 
 def _run_job(study: Study, references: References, options: SearchOptions, job: Job) -> SearchResult | None:
@@ -101,6 +103,7 @@ def search_in_workers(
     # the workers start with Ctrl-C ignored (a disposition kept across exec), so that one pressed
     # while they import cannot kill them before _start_worker runs
     previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    previous_term = signal.signal(signal.SIGTERM, signal.SIG_IGN)
     try:
         pool = ProcessPoolExecutor(
             max_workers=workers, mp_context=ctx, initializer=_start_worker, initargs=(steps, stop)
@@ -108,6 +111,7 @@ def search_in_workers(
         futures = {pool.submit(_run_job, study, references, options, job): job for job in jobs}
     finally:
         signal.signal(signal.SIGINT, previous)
+        signal.signal(signal.SIGTERM, previous_term)
     pending = set(futures)
     try:
         while pending:

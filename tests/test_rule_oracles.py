@@ -105,6 +105,55 @@ def test_check_and_encoding_agree_with_oracle(rule, runs, expected):
     assert fixed_feasible(facts, [rule], arrays) == expected
 
 
+def counts_model_accepts(facts, rule, arrays) -> bool | None:
+    """Is the transition-count model feasible with its counts fixed to these orderings' (pairs, first
+    and last trial per run)? None when the rule cannot be said there."""
+    from ortools.sat.python import cp_model
+
+    from seqsolve.flow import FlowModel
+    from seqsolve.rules.transitions import pair_counts
+
+    f = FlowModel(facts)
+    g = f.new_guard("r")
+    f.cp.add(g == 1)
+    if not rule.encode_flow(f, g):
+        return None
+    for r, a in enumerate(arrays):
+        pairs = pair_counts(a, facts.n_conditions)
+        for i in range(facts.n_conditions):
+            f.cp.add(f.start[r][i] == int(a[0] == i))
+            f.cp.add(f.end[r][i] == int(a[-1] == i))
+            for j in range(facts.n_conditions):
+                f.cp.add(f.m[r][i, j] == int(pairs[i, j]))
+    solver = cp_model.CpSolver()
+    solver.parameters.num_workers = 1
+    return solver.solve(f.cp) != cp_model.INFEASIBLE
+
+
+FLOW_ROWS = [row for row in ORACLE + BOUNDARY_ORACLE if row[2]]
+
+
+@pytest.mark.parametrize("rule, runs, expected", FLOW_ROWS)
+def test_counts_model_never_excludes_a_valid_oracle_ordering(rule, runs, expected):
+    # the counts model sees pair counts only, so it is exact one way: an ordering the check accepts
+    # must leave its counts feasible (the other way is the trail builder's job, tests/test_flow.py)
+    arrays = [seq(r) for r in runs]
+    facts = make_facts(np.bincount(arrays[0], minlength=3), runs=len(runs), grouped=True)
+    assert counts_model_accepts(facts, rule, arrays) in (True, None)
+
+
+def flow_kinds_with_oracle_rows() -> set[str]:
+    """Rule kinds with at least one valid oracle row that the counts model can state."""
+    out = set()
+    for row in FLOW_ROWS:
+        rule, runs, _ = row
+        arrays = [seq(r) for r in runs]
+        facts = make_facts(np.bincount(arrays[0], minlength=3), runs=len(runs), grouped=True)
+        if counts_model_accepts(facts, rule, arrays) is not None:
+            out.add(type(rule).__name__)
+    return out
+
+
 def test_violation_names_positions_and_what_was_found():
     facts = make_facts([3, 3], grouped=False)
     (v,) = MaxRun(kind="max-run", length=2).check(facts, [seq("aaabbb")[[0, 1, 2, 3, 4, 5]]])[:1]

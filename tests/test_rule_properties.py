@@ -61,9 +61,27 @@ def rules_for(draw, k: int):
             placement=draw(st.sampled_from(["never", "always"])),
             **{where: value},
         )
-    if draw(st.booleans()):
-        return EvenSpread(kind="even-spread", segments=draw(st.integers(2, 3)), tolerance=draw(st.integers(0, 1)))
-    return EvenSpread(kind="even-spread", window=draw(st.integers(2, 4)), tolerance=draw(st.integers(0, 1)))
+    if kind == "EvenSpread":
+        if draw(st.booleans()):
+            return EvenSpread(kind="even-spread", segments=draw(st.integers(2, 3)), tolerance=draw(st.integers(0, 1)))
+        return EvenSpread(kind="even-spread", window=draw(st.integers(2, 4)), tolerance=draw(st.integers(0, 1)))
+    # a new rule kind must get its own branch above (and its name in STRATEGY_KINDS): no silent fall-through
+    raise NotImplementedError(f"no strategy for rule kind {kind}; add one to rules_for")
+
+
+#: the rule kinds rules_for draws; tests/test_registry.py holds this to the registry
+STRATEGY_KINDS = frozenset(
+    {
+        "MaxRun",
+        "MinRun",
+        "BalancedTransitions",
+        "ForbiddenTransition",
+        "MinGap",
+        "RunBoundary",
+        "Position",
+        "EvenSpread",
+    }
+)
 
 
 @st.composite

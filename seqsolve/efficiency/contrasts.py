@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+MAX_DEPTH = 50  # nested parentheses or signs; a contrast nests two or three (the parser recurses per level)
+MAX_CHARS = 10_000  # longer texts are not contrasts (the spec allows 1,000)
 _TOKEN = re.compile(r"\s*(?:(\d+\.\d*|\.\d+|\d+)|([A-Za-z][A-Za-z0-9_]*)|(.))")
 
 
@@ -48,8 +50,11 @@ def _tokens(text: str) -> list[tuple[str, str]]:
 class _Parser:
     def __init__(self, text: str, names: list[str]):
         self.text, self.names = text, names
+        if len(text) > MAX_CHARS:
+            raise ContrastSyntaxError(f"a contrast of {len(text):,} characters; at most {MAX_CHARS:,} are read")
         self.toks = _tokens(text)
         self.i = 0
+        self.depth = 0
 
     def peek(self):
         return self.toks[self.i] if self.i < len(self.toks) else ("end", "")
@@ -89,6 +94,15 @@ class _Parser:
         return left
 
     def factor(self) -> _Linear:
+        self.depth += 1
+        try:
+            if self.depth > MAX_DEPTH:
+                raise ContrastSyntaxError(f"parentheses or signs nested more than {MAX_DEPTH} deep in a contrast")
+            return self._factor()
+        finally:
+            self.depth -= 1
+
+    def _factor(self) -> _Linear:
         kind, value = self.take()
         zero = np.zeros(len(self.names))
         if kind == "num":

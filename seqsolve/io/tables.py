@@ -5,12 +5,15 @@ from __future__ import annotations
 import csv
 import difflib
 import io
+import math
 import re
+from array import array
 from pathlib import Path
 
 import numpy as np
 
-from seqsolve.errors import OrderingFileError, Problem
+from seqsolve.errors import OrderingFileError, Problem, shorten
+from seqsolve.io import limits
 from seqsolve.spec import Study
 from seqsolve.timing import RunSchedule
 
@@ -49,7 +52,10 @@ def orderings_csv(study: Study, designs: dict[str, list[RunSchedule]]) -> str:
 
 
 # ----------------------------------------------------------------------------------------------
-# reading
+# reading: every value checked at the edge (size, encoding, field length, finite numbers, bounds)
+
+MAX_PROBLEMS = 20  # a file stops being read after this many problems: the first ones show what is wrong
+MAX_NAME_CHARS = 200  # condition names and participant labels are short; longer fields are not names
 
 
 def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.ndarray]]:
@@ -65,38 +71,255 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
 
 def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
     """Like read_orderings, with each run's onsets in seconds where the files give every one (else None)."""
-    trials: dict[str, dict[int, dict[int, int]]] = {}
-    onsets: dict[tuple[str, int, int], float] = {}
-    for path in map(Path, paths):
-        if not path.is_file():
-            raise OrderingFileError(str(path), [Problem("", "file not found")])
+    paths = [Path(p) for p in paths]
+    trials = _Trials()
+    for f, path in enumerate(paths):
+        _check_file(path)
         if path.name.endswith("_events.tsv") or path.suffix == ".tsv":
             label, run, codes, times = _read_events(study, path)
-            trials.setdefault(label, {})
-            if run in trials[label]:
+            if trials.has_run(label, run):
                 raise OrderingFileError(str(path), [Problem("", f"participant {label} run {run} was already read")])
-            trials[label][run] = dict(enumerate(codes, start=1))
-            onsets.update({(label, run, p): t for p, t in enumerate(times, start=1)})
+            for pos, (code, onset) in enumerate(zip(codes, times), start=1):
+                trials.add(label, run, pos, code, onset, f, 0)
         else:
-            _read_csv(study, path, trials, onsets)
-    out = {}
-    for label, runs in trials.items():
-        if sorted(runs) != list(range(1, study.facts.n_runs + 1)):
-            raise OrderingFileError(
-                ", ".join(map(str, paths)),
-                [
-                    Problem(
-                        f"participant {label}",
-                        f"has runs {sorted(runs)}; the spec declares {study.facts.n_runs} run(s) (1 to {study.facts.n_runs})",
-                    )
-                ],
+            _read_csv(study, path, f, trials)
+    return trials.designs(study, paths)
+
+
+class _Trials:
+    """Every trial read so far, column by column in compact arrays (about 40 bytes a trial, so a file at
+    the size limit stays far below a gigabyte), and assembled into runs once all files are read."""
+
+    def __init__(self):
+        self.labels: dict[str, int] = {}
+        self.ints = {k: array("q") for k in ("label", "run", "pos", "code", "file", "line")}
+        self.onset = array("d")  # NaN: no onset given
+
+    def add(self, label: str, run: int, pos: int, code: int, onset: float | None, file: int, line: int) -> None:
+        index = self.labels.setdefault(label, len(self.labels))
+        for key, value in (
+            ("label", index),
+            ("run", run),
+            ("pos", pos),
+            ("code", code),
+            ("file", file),
+            ("line", line),
+        ):
+            self.ints[key].append(value)
+        self.onset.append(math.nan if onset is None else onset)
+
+    def has_run(self, label: str, run: int) -> bool:
+        if label not in self.labels:
+            return False
+        col = {k: np.frombuffer(self.ints[k], dtype=np.int64) for k in ("label", "run")}
+        return bool(np.any((col["label"] == self.labels[label]) & (col["run"] == run)))
+
+    def designs(self, study: Study, paths: list[Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
+        """Runs per participant in position order; a repeated or missing position or run raises."""
+        col = {k: np.frombuffer(v, dtype=np.int64) if len(v) else np.zeros(0, np.int64) for k, v in self.ints.items()}
+        onset = np.frombuffer(self.onset, dtype=float) if len(self.onset) else np.zeros(0)
+        order = np.lexsort((col["file"], col["line"], col["pos"], col["run"], col["label"]))
+        col = {k: v[order] for k, v in col.items()}
+        onset = onset[order]
+        names = list(self.labels)
+        _check_repeats(col, names, paths)
+        # one block per (participant, run): the sort made them contiguous
+        key = col["label"] * (study.facts.n_runs + 1) + col["run"]
+        starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]]) if len(key) else np.zeros(0, np.int64)
+        ends = np.r_[starts[1:], len(key)].astype(np.int64)
+        where = ", ".join(map(str, paths))
+        blocks: dict[int, dict[int, tuple[np.ndarray, np.ndarray | None]]] = {}
+        for a, b in zip(starts, ends):
+            label, run = names[col["label"][a]], int(col["run"][a])
+            pos = col["pos"][a:b]
+            if pos[-1] != b - a:  # sorted, unique, from 1: complete exactly when the last is the count
+                gap = int(np.flatnonzero(pos != np.arange(1, b - a + 1))[0]) + 1
+                raise OrderingFileError(
+                    where,
+                    [
+                        Problem(
+                            f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ..."
+                        )
+                    ],
+                )
+            times = onset[a:b]
+            blocks.setdefault(col["label"][a], {})[run] = (
+                col["code"][a:b].copy(),
+                None if np.isnan(times).any() else _checked_onsets(study, where, label, run, times.copy()),
             )
-        out[label] = []
-        for r in sorted(runs):
-            codes = np.array([runs[r][p] for p in sorted(runs[r])], dtype=np.int64)
-            times = [onsets.get((label, r, p)) for p in sorted(runs[r])]
-            out[label].append((codes, None if None in times else np.array(times, dtype=float)))
-    return out
+        out = {}
+        for index, runs in blocks.items():
+            if sorted(runs) != list(range(1, study.facts.n_runs + 1)):
+                raise OrderingFileError(
+                    where,
+                    [
+                        Problem(
+                            f"participant {names[index]}",
+                            f"has runs {sorted(runs)}; the spec declares {study.facts.n_runs} run(s) "
+                            f"(1 to {study.facts.n_runs})",
+                        )
+                    ],
+                )
+            out[names[index]] = [runs[r] for r in sorted(runs)]
+        return out
+
+
+def _check_repeats(col: dict[str, np.ndarray], names: list[str], paths: list[Path]) -> None:
+    """A position given twice for one participant and run, reported at its later line (columns sorted)."""
+    same = np.flatnonzero(
+        (col["label"][1:] == col["label"][:-1])
+        & (col["run"][1:] == col["run"][:-1])
+        & (col["pos"][1:] == col["pos"][:-1])
+    )
+    if not len(same):
+        return
+    problems = []
+    file = int(col["file"][same[0] + 1])
+    for i in same[:MAX_PROBLEMS] + 1:
+        label, run, pos = names[col["label"][i]], col["run"][i], col["pos"][i]
+        where = f"line {col['line'][i]}" if col["file"][i] == file else f"{paths[col['file'][i]]} line {col['line'][i]}"
+        problems.append(Problem(where, f"participant {label} run {run} position {pos} appears twice"))
+    raise OrderingFileError(str(paths[file]), problems)
+
+
+def _checked_onsets(study: Study, where: str, label: str, run: int, times: np.ndarray) -> np.ndarray:
+    """A run's onsets (seconds, position order): they must not decrease, and the run must fit the volume limit."""
+    if len(times) > 1 and np.any(np.diff(times) < 0):
+        p = int(np.flatnonzero(np.diff(times) < 0)[0]) + 2
+        raise OrderingFileError(
+            where,
+            [
+                Problem(
+                    f"participant {label} run {run} position {p}",
+                    f"onset {times[p - 1]:g} s comes before the previous position's {times[p - 2]:g} s; "
+                    "onsets must not decrease with position",
+                )
+            ],
+        )
+    volumes = (times[-1] if len(times) else 0.0) / study.spec.timing.tr
+    if volumes > limits.VOLUMES_PER_RUN.value():
+        raise OrderingFileError(
+            where,
+            [
+                Problem(
+                    f"participant {label} run {run}",
+                    f"its last onset {times[-1]:g} s lies {volumes:,.0f} volumes of TR {study.spec.timing.tr:g} s in; "
+                    f"are the onsets in seconds? {limits.VOLUMES_PER_RUN.hint()}",
+                )
+            ],
+        )
+    return times
+
+
+def _check_file(path: Path) -> None:
+    """A readable file within the size limit, else OrderingFileError saying what to do."""
+    try:
+        if not path.is_file():
+            raise OrderingFileError(
+                str(path), [Problem("", "file not found; give orderings.csv or *_events.tsv files")]
+            )
+        size = path.stat().st_size
+    except (OSError, ValueError):
+        raise OrderingFileError(str(path), [Problem("", "file not found or not readable")]) from None
+    if size > limits.FILE_MB.value() * 1e6:
+        raise OrderingFileError(str(path), [Problem("", f"the file has {size / 1e6:,.1f} MB; {limits.FILE_MB.hint()}")])
+
+
+def _rows(path: Path, delimiter: str):
+    """(line number, row) of a UTF-8 CSV/TSV file read as a stream (memory stays bounded by what is kept);
+    undecodable bytes or a malformed line raise OrderingFileError naming the line."""
+    try:
+        fh = path.open(newline="", encoding="utf-8-sig")
+    except OSError as exc:
+        raise OrderingFileError(str(path), [Problem("", f"cannot be read ({exc.strerror})")]) from None
+    with fh:
+        reader = csv.reader(fh, delimiter=delimiter)
+        while True:
+            try:
+                row = next(reader)
+            except StopIteration:
+                return
+            except UnicodeDecodeError:
+                raise OrderingFileError(
+                    str(path),
+                    [
+                        Problem(
+                            f"line {_first_undecodable_line(path)}",
+                            "holds bytes that are not UTF-8 text; save the file as UTF-8 "
+                            "(in a spreadsheet: 'CSV UTF-8'), or is this not an ordering table?",
+                        )
+                    ],
+                ) from None
+            except csv.Error as exc:
+                raise OrderingFileError(
+                    str(path),
+                    [
+                        Problem(
+                            f"line {reader.line_num}",
+                            f"cannot be read as a table ({exc}); fields are short names and numbers: is this the right file?",
+                        )
+                    ],
+                ) from None
+            yield reader.line_num, row
+
+
+def _first_undecodable_line(path: Path) -> int:
+    """The first line holding bytes that are not UTF-8 (the text reader decodes in chunks, so it cannot say)."""
+    with path.open("rb") as fh:
+        for number, raw in enumerate(fh, start=1):
+            try:
+                raw.decode("utf-8")
+            except UnicodeDecodeError:
+                return number
+    return 1
+
+
+def _header(path: Path, rows, needed: tuple[str, ...], hint: str) -> dict[str, int]:
+    """Column positions from the first line, or an error naming the missing columns."""
+    _, head = next(rows, (1, []))
+    cols = {name.strip(): i for i, name in reversed(list(enumerate(head)))}
+    missing = [c for c in needed if c not in cols]
+    if missing:
+        raise OrderingFileError(str(path), [Problem("line 1", f"missing column(s) {', '.join(missing)}; {hint}")])
+    return cols
+
+
+def _field(row: list[str], cols: dict[str, int], name: str) -> str | None:
+    i = cols.get(name)
+    return row[i] if i is not None and i < len(row) else None
+
+
+def _whole(text: str | None, low: int, high: int) -> int | None:
+    """An integer in [low, high] from a field, else None."""
+    if text is None or len(text) > 12:
+        return None
+    try:
+        value = int(text)
+    except ValueError:
+        return None
+    return value if low <= value <= high else None
+
+
+def _seconds(text: str | None, what: str, where: str, problems: list[Problem]) -> float | None:
+    """A finite time in [0, limit] seconds from a field; None (and a problem) otherwise."""
+    try:
+        value = float(text) if text is not None and len(text) <= 40 else float("nan")
+    except ValueError:
+        value = float("nan")
+    if not math.isfinite(value) or not 0 <= value <= limits.SECONDS.value():
+        problems.append(
+            Problem(
+                where,
+                f"{what} must be a number of seconds from 0 to {limits.SECONDS.value():,g}; got {shorten(text)} "
+                f"({limits.SECONDS.hint()})",
+            )
+        )
+        return None
+    return value
+
+
+def _name(text: str | None) -> str:
+    return (text or "").strip()
 
 
 def _code(study: Study, name: str, where: str, problems: list[Problem]) -> int | None:
@@ -106,10 +329,12 @@ def _code(study: Study, name: str, where: str, problems: list[Problem]) -> int |
         if isinstance(p, _Unknown) and p.name == name:
             problems[i] = _Unknown(p.where, p.message, name, p.more + 1)
             return None
-    close = difflib.get_close_matches(name, study.names, n=1)
+    close = difflib.get_close_matches(name, study.names, n=1) if len(name) <= MAX_NAME_CHARS else []
     hint = f" (did you mean '{close[0]}'?)" if close else ""
     problems.append(
-        _Unknown(where, f"unknown condition '{name}'{hint}; the spec's conditions: {', '.join(study.names)}", name)
+        _Unknown(
+            where, f"unknown condition {shorten(name)}{hint}; the spec's conditions: {', '.join(study.names)}", name
+        )
     )
     return None
 
@@ -131,65 +356,56 @@ def _wrong_spec_hint(study: Study, problems: list[Problem], known: int) -> list[
     return problems
 
 
-def _read_csv(study: Study, path: Path, trials: dict, onsets: dict) -> None:
+def _read_csv(study: Study, path: Path, file: int, trials: _Trials) -> None:
     problems: list[Problem] = []
     found = 0
-    with path.open(newline="", encoding="utf-8-sig") as fh:
-        reader = csv.DictReader(fh)
-        missing = [c for c in ORDERING_COLUMNS[:4] if c not in (reader.fieldnames or [])]
-        if missing:
-            raise OrderingFileError(
-                str(path),
-                [
-                    Problem(
-                        "line 1",
-                        f"missing column(s) {', '.join(missing)}; an ordering table has columns {', '.join(ORDERING_COLUMNS[:4])} (onset, duration optional)",
-                    )
-                ],
-            )
-        for line, row in enumerate(reader, start=2):
-            where = f"line {line}"
-            try:
-                run, pos = int(row["run"]), int(row["position"])
-            except (TypeError, ValueError):
-                problems.append(
-                    Problem(where, f"run and position must be whole numbers; got {row['run']!r}, {row['position']!r}")
-                )
-                continue
-            if run < 1 or pos < 1:
-                problems.append(Problem(where, "run and position count from 1"))
-                continue
-            code = _code(study, (row["condition"] or "").strip(), where, problems)
-            found += code is not None
-            label = (row["participant"] or "").strip()
-            if not label:
-                problems.append(Problem(where, "empty participant"))
-                continue
-            slot = trials.setdefault(label, {}).setdefault(run, {})
-            if pos in slot:
-                problems.append(Problem(where, f"participant {label} run {run} position {pos} appears twice"))
-            elif code is not None:
-                slot[pos] = code
-                try:
-                    onsets[(label, run, pos)] = float(row.get("onset") or "nan")
-                except ValueError:
-                    problems.append(Problem(where, f"onset must be a number of seconds; got {row.get('onset')!r}"))
-                if onsets.get((label, run, pos)) != onsets.get((label, run, pos)):  # NaN: no onset given
-                    onsets.pop((label, run, pos))
-            if len(problems) >= 20:
-                break
-    for label, runs in trials.items():
-        for run, slots in runs.items():
-            if slots and sorted(slots) != list(range(1, len(slots) + 1)):
-                gap = next(p for p in range(1, max(slots) + 1) if p not in slots)
-                problems.append(
-                    Problem(f"participant {label} run {run}", f"position {gap} is missing; positions run 1, 2, 3, ...")
-                )
+    rows = _rows(path, ",")
+    cols = _header(
+        path,
+        rows,
+        ORDERING_COLUMNS[:4],
+        f"an ordering table has columns {', '.join(ORDERING_COLUMNS[:4])} (onset, duration optional)",
+    )
+    n_runs, max_pos = study.facts.n_runs, int(limits.TRIALS_PER_RUN.value())
+    for line, row in rows:
+        where = f"line {line}"
+        if len(problems) >= MAX_PROBLEMS:
+            break
+        if not any(cell.strip() for cell in row):
+            continue  # blank lines, as spreadsheets leave at the end
+        run, pos = _whole(_field(row, cols, "run"), 1, n_runs), _whole(_field(row, cols, "position"), 1, max_pos)
+        if run is None or pos is None:
+            problems.append(_bad_run_position(row, cols, n_runs, max_pos, where))
+            continue
+        label = _name(_field(row, cols, "participant"))
+        if not label or len(label) > MAX_NAME_CHARS:
+            problems.append(Problem(where, f"participant must be a short label; got {shorten(label)}"))
+            continue
+        if label not in trials.labels and len(trials.labels) >= limits.PARTICIPANTS.value():
+            problems.append(Problem(where, f"too many participants; {limits.PARTICIPANTS.hint()}"))
+            break
+        code = _code(study, _name(_field(row, cols, "condition")), where, problems)
+        found += code is not None
+        given = (_field(row, cols, "onset") or "").strip()
+        # onsets are optional; without them the spec's timing is used
+        onset = _seconds(given, "onset", where, problems) if given else None
+        if code is not None and (onset is not None or not given):
+            trials.add(label, run, pos, code, onset, file, line)
     if problems:
         raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
 
 
-_BIDS = re.compile(r"sub-(?P<sub>[A-Za-z0-9]+)_.*?(?:run-(?P<run>\d+)_)?events\.tsv$")
+def _bad_run_position(row: list[str], cols: dict[str, int], n_runs: int, max_pos: int, where: str) -> Problem:
+    run, pos = _field(row, cols, "run"), _field(row, cols, "position")
+    big = _whole(pos, max_pos + 1, 10**12) is not None
+    return Problem(
+        where,
+        f"run and position must be whole numbers, run from 1 to {n_runs} (the spec's runs), position from 1 to "
+        f"{max_pos:,}; got {shorten(run)}, {shorten(pos)}" + (f" ({limits.TRIALS_PER_RUN.hint()})" if big else ""),
+    )
+
+
+_BIDS = re.compile(r"sub-(?P<sub>[A-Za-z0-9]+)_.*?(?:run-(?P<run>\d{1,6})_)?events\.tsv$")
 
 
 def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[float]]:
@@ -199,38 +415,39 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[fl
             str(path), [Problem("file name", "expected a BIDS name like sub-01_task-cue_run-1_events.tsv")]
         )
     label, run = m["sub"], int(m["run"] or 1)
+    if not 1 <= run <= study.facts.n_runs:
+        raise OrderingFileError(
+            str(path), [Problem("file name", f"run-{run}, but the spec declares {study.facts.n_runs} run(s) from 1")]
+        )
     problems: list[Problem] = []
     found = 0
     rows = []
-    with path.open(newline="", encoding="utf-8-sig") as fh:
-        reader = csv.DictReader(fh, delimiter="\t")
-        missing = [c for c in EVENTS_COLUMNS if c not in (reader.fieldnames or [])]
-        if missing:
-            raise OrderingFileError(
-                str(path),
-                [
-                    Problem(
-                        "line 1",
-                        f"missing column(s) {', '.join(missing)}; BIDS events need onset, duration, trial_type (tab-separated)",
-                    )
-                ],
+    lines = _rows(path, "\t")
+    cols = _header(path, lines, EVENTS_COLUMNS, "BIDS events need onset, duration, trial_type (tab-separated)")
+    max_rows = int(limits.TRIALS_PER_RUN.value())
+    for line, row in lines:
+        if len(problems) >= MAX_PROBLEMS:
+            break
+        if not any(cell.strip() for cell in row):
+            continue
+        if len(rows) >= max_rows:
+            problems.append(
+                Problem(f"line {line}", f"more trials than one run may hold; {limits.TRIALS_PER_RUN.hint()}")
             )
-        for line, row in enumerate(reader, start=2):
-            try:
-                onset = float(row["onset"])
-            except (TypeError, ValueError):
-                problems.append(Problem(f"line {line}", f"onset must be a number of seconds; got {row['onset']!r}"))
-                continue
-            code = _code(study, (row["trial_type"] or "").strip(), f"line {line}", problems)
-            found += code is not None
-            if code is not None:
-                rows.append((onset, code))
+            break
+        onset = _seconds(_field(row, cols, "onset"), "onset", f"line {line}", problems)
+        code = _code(study, _name(_field(row, cols, "trial_type")), f"line {line}", problems)
+        found += code is not None
+        if code is not None and onset is not None:
+            rows.append((onset, code))
+    if not rows and not problems:
+        problems.append(Problem("", "no trials after the header line; an events file has one row per trial"))
     if problems:
         raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
     rows.sort()
     codes = [c for _, c in rows]
     base = study.facts.baseline
-    if base is None or base in codes or study.facts.counts[min(run, study.facts.n_runs) - 1, base] == 0:
+    if base is None or base in codes or study.facts.counts[run - 1, base] == 0:
         return label, run, codes, [t for t, _ in rows]
     codes = _restore_baseline(study, path, rows, run)
     t = study.spec.timing
@@ -251,6 +468,7 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], r
             ],
         )
     slots = {}
+    max_slots = int(limits.TRIALS_PER_RUN.value())
     for onset, code in rows:
         k = (onset - t.lead_in) / t.soa
         if abs(k - round(k)) > 1e-3 or k < -1e-9:
@@ -263,6 +481,17 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], r
                     )
                 ],
             )
+        if round(k) >= max_slots:
+            raise OrderingFileError(
+                str(path),
+                [
+                    Problem(
+                        "", f"onset {onset:g} s is trial {round(k) + 1:,} of the run; {limits.TRIALS_PER_RUN.hint()}"
+                    )
+                ],
+            )
+        if int(round(k)) in slots:
+            raise OrderingFileError(str(path), [Problem("", f"two trials have onset {onset:g} s")])
         slots[int(round(k))] = code
-    n = max(study.facts.run_length(min(run, study.facts.n_runs) - 1), max(slots) + 1)
+    n = max(study.facts.run_length(run - 1), max(slots) + 1)
     return [slots.get(k, study.facts.baseline) for k in range(n)]

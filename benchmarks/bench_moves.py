@@ -103,8 +103,22 @@ def main() -> int:
         def go():
             best = codes.copy()
             out = kernels.tracked_moves(
-                checker.tables, checker.state, track, fir_part or NO_FIR_TRACK, 1.0, 1.0 if fir_part else 0.0,
-                200, 24, 4, late, 0, -1.0, -1.0, best, ends, 7,
+                checker.tables,
+                checker.state,
+                track,
+                fir_part or NO_FIR_TRACK,
+                1.0,
+                1.0 if fir_part else 0.0,
+                200,
+                24,
+                4,
+                late,
+                0,
+                -1.0,
+                -1.0,
+                best,
+                ends,
+                7,
             )
             return int(out[3])
 
@@ -118,7 +132,9 @@ def main() -> int:
         ("search loop, detection + estimation", *timed(loop(fir), span)),
     ]
     base = rows[0][1] / rows[0][2]
-    print(f"candidate swaps judged per second, one core; 4 runs x 240 trials, 5 rules; {valid_share:.0%} of swaps valid")
+    print(
+        f"candidate swaps judged per second, one core; 4 runs x 240 trials, 5 rules; {valid_share:.0%} of swaps valid"
+    )
     print(f"{'method':<40}{'judged/s':>14}{'vs full':>10}")
     for name, n, dt in rows:
         rate = n / dt

@@ -99,8 +99,7 @@ def main() -> int:
     print(f"  {EXAMPLE.name}: {took:.1f} s (target <= 15 s); scores {min(scores):.4f} to {max(scores):.4f}")
     took, scores = generate_cli(STUDY24, ROOT, ["--workers", "2"])
     print(
-        f"  {STUDY24.name}: {took:.1f} s (target <= 180 s); mean score {np.mean(scores):.4f}, "
-        f"lowest {min(scores):.4f}"
+        f"  {STUDY24.name}: {took:.1f} s (target <= 180 s); mean score {np.mean(scores):.4f}, lowest {min(scores):.4f}"
     )
     if args.against:
         ref = yardstick(args.against)

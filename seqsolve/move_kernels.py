@@ -568,9 +568,7 @@ def _fir_first_order(e, codes, i, j, h):
 
 
 @njit(cache=True)
-def tracked_moves(
-    t, s, d, e, wd, we, n_moves, batch, screen, late, late_at, current, best, best_codes, run_ends, seed
-):
+def tracked_moves(t, s, d, e, wd, we, n_moves, batch, screen, late, late_at, current, best, best_codes, run_ends, seed):
     """`n_moves` moves of the search, all compiled (see search.Search._move): each draws `batch`
     swaps, judges them locally, scores the valid ones (wd x detection + we x estimation; a weight
     of 0 skips its part) and makes the best one under late acceptance. With screen > 0, estimation

@@ -142,6 +142,34 @@ class Judge:
         return _key(runs) not in self.taken  # every participant gets a design of their own
 
 
+def warm_up(study: Study) -> None:
+    """Compile (or load from numba's cache) the search's kernels for this study's rules, so that
+    worker processes started next load them instead of each compiling them at once (tens of
+    seconds on a new machine)."""
+    n = int(study.facts.counts.sum())
+    codes = np.concatenate([np.repeat(np.arange(study.facts.n_conditions), c) for c in study.facts.counts])
+    checker = MoveChecker(compile_moves(study.rules, study.facts), [], codes)
+    checker.valid(np.zeros((1, 2), dtype=np.int64))
+    checker._k.tracked_moves(
+        checker.tables,
+        checker.state,
+        NO_TRACK,
+        NO_FIR_TRACK,
+        0.0,
+        0.0,
+        0,
+        1,
+        1,
+        np.zeros(1),
+        0,
+        0.0,
+        0.0,
+        codes.copy(),
+        np.array([n], dtype=np.int64),
+        0,
+    )
+
+
 def shuffled(study: Study, rng: np.random.Generator) -> list[np.ndarray]:
     """Each run's trials in a random order (the counts of the spec; rules not looked at)."""
     return [rng.permutation(np.repeat(np.arange(study.facts.n_conditions), n)) for n in study.facts.counts]
@@ -653,10 +681,22 @@ class Search:
         w = int(min(n, max(2 * self.window, 8)))
         start = int(self.rng.integers(0, n - w + 1))
         weights = self.rng.integers(-100, 101, size=(w, self.study.facts.n_conditions))
-        found, _ = self.windows.solve(base, run, np.arange(start, start + w), weights, int(self.rng.integers(2**31 - 1)))
+        found, _ = self.windows.solve(
+            base, run, np.arange(start, start + w), weights, int(self.rng.integers(2**31 - 1))
+        )
         runs = found[-1] if found and self.judge.ok(found[-1]) else base
         self._move_to(runs, scorer.score(runs), scorer)
         self.window = self.options.window
 
 
-__all__ = ["STOPPED_BY", "Judge", "Progress", "Search", "SearchOptions", "SearchResult", "WindowSolver", "shuffled"]
+__all__ = [
+    "warm_up",
+    "STOPPED_BY",
+    "Judge",
+    "Progress",
+    "Search",
+    "SearchOptions",
+    "SearchResult",
+    "WindowSolver",
+    "shuffled",
+]

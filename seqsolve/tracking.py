@@ -29,7 +29,11 @@ FirTrack = namedtuple("FirTrack", ["omega", "scan", "col", "contrast", "m", "tv"
 #: what the compiled loop takes for a part it does not score
 NO_TRACK = Track(np.zeros((0, 0)), np.zeros(0, np.int64), np.zeros((0, 0)), np.zeros((0, 0)), np.zeros((0, 0)))
 NO_FIR_TRACK = FirTrack(
-    np.zeros((0, 0)), np.zeros((0, 0), np.int64), np.zeros(0, np.int64), np.zeros((0, 0)), np.zeros((0, 0)),
+    np.zeros((0, 0)),
+    np.zeros((0, 0), np.int64),
+    np.zeros(0, np.int64),
+    np.zeros((0, 0)),
+    np.zeros((0, 0)),
     np.zeros((0, 0)),
 )
 
@@ -99,6 +103,13 @@ def refresh_fir(track: FirTrack, codes: np.ndarray) -> None:
 
 
 __all__ = [
-    "MAX_TRIALS", "NO_FIR_TRACK", "NO_TRACK", "FirTrack", "Track", "detection_track", "fir_track", "refresh",
+    "MAX_TRIALS",
+    "NO_FIR_TRACK",
+    "NO_TRACK",
+    "FirTrack",
+    "Track",
+    "detection_track",
+    "fir_track",
+    "refresh",
     "refresh_fir",
 ]

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.objective import References, Scorer, Weights
-from seqsolve.search import Progress, Search, SearchOptions, SearchResult
+from seqsolve.search import Progress, Search, SearchOptions, SearchResult, warm_up
 from seqsolve.spec import Study
 from seqsolve.timing import draw_gaps
 
@@ -102,6 +102,7 @@ def search_in_workers(
     interrupted = False
     # the workers start with Ctrl-C ignored (a disposition kept across exec), so that one pressed
     # while they import cannot kill them before _start_worker runs
+    warm_up(study)  # compiled once here, loaded from the cache by every worker
     previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
     previous_term = signal.signal(signal.SIGTERM, signal.SIG_IGN)
     try:

@@ -18,7 +18,7 @@ from ortools.sat.python import cp_model
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from seqsolve.rules import BalancedTransitions  # noqa: E402
-from seqsolve.solve import SolveOptions, _params, _PositionsPath, _solve_hinted, generate_orderings  # noqa: E402
+from seqsolve.solve import SolveOptions, _PositionsPath, _solve_hinted, generate_orderings, solver_params  # noqa: E402
 from seqsolve.spec import study_from_mapping  # noqa: E402
 
 RULES = [
@@ -120,7 +120,7 @@ def ours_positions(study, limit: float) -> float | None:
     m, guards = _PositionsPath(study, options).full([])
     rng = np.random.default_rng(0)
     shuffled = [rng.permutation(np.repeat(np.arange(study.facts.n_conditions), n)) for n in study.facts.counts]
-    solver = _params(0, options, time_limit=max(limit - (time.perf_counter() - t0), 0.01))
+    solver = solver_params(0, options, time_limit=max(limit - (time.perf_counter() - t0), 0.01))
     status, _ = _solve_hinted(m, guards, shuffled, solver)
     return time.perf_counter() - t0 if status in (cp_model.OPTIMAL, cp_model.FEASIBLE) else None
 

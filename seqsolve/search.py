@@ -37,11 +37,10 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from seqsolve.errors import InternalError
-from seqsolve.model import OrderingModel
 from seqsolve.moves import MoveChecker, compile_moves
 from seqsolve.objective import Figures, Scorer
 from seqsolve.rules.participants_differ import ParticipantsDiffer
-from seqsolve.solve import SolveOptions, _params, check_runs, choose_method, sample_orderings
+from seqsolve.solve import SolveOptions, check_runs, choose_method, encode_rules, sample_orderings, solver_params
 from seqsolve.spec import Study
 from seqsolve.tracking import NO_FIR_TRACK, NO_TRACK, detection_track, fir_track, refresh, refresh_fir
 
@@ -204,12 +203,7 @@ class WindowSolver:
         """
         fixed = [r.copy() for r in runs]
         fixed[run][positions] = -1
-        m = OrderingModel(self.study.facts, fixed)
-        guards = [m.new_guard(str(i)) for i in range(len(self.study.rules))]
-        for rule, g in zip(self.study.rules, guards):
-            rule.encode(m, g)
-            if rule.across_participants:
-                rule.encode_against(m, g, self.earlier)
+        m, guards = encode_rules(self.study, fixed, self.earlier)
         xs = m.x[run]
         lits, coefs = [], []
         for i, p in enumerate(positions):
@@ -227,7 +221,7 @@ class WindowSolver:
             seen = _Collector(xs[positions])
         m.cp.clear_assumptions()
         m.cp.add_assumptions(guards)
-        solver = _params(seed, self.options, work=self.work)
+        solver = solver_params(seed, self.options, work=self.work)
         if weights is None:
             solver.parameters.enumerate_all_solutions = True
         status = solver.solve(m.cp, seen)

@@ -159,9 +159,11 @@ def sample_orderings(
     return out
 
 
-def _params(
+def solver_params(
     seed: int, options: SolveOptions, time_limit: float | None = None, work: float | None = None
 ) -> cp_model.CpSolver:
+    """A CP-SAT solver set up the way every seqsolve solve runs: one worker, the seed, a deterministic
+    work limit (so results repeat) and a wall-clock limit as a safety net."""
     solver = cp_model.CpSolver()
     solver.parameters.num_workers = 1  # one worker: the result depends on the seed alone
     solver.parameters.random_seed = seed
@@ -170,6 +172,20 @@ def _params(
     # Ctrl-C belongs to Python (the search keeps its best design); CP-SAT's own handler would end the process
     solver.parameters.catch_sigint_signal = False
     return solver
+
+
+def encode_rules(
+    study: Study, fixed: list[np.ndarray] | None, earlier: list[list[np.ndarray]]
+) -> tuple[OrderingModel, list]:
+    """The per-position model of every rule (positions of `fixed` that are not -1 as constants,
+    earlier participants for rules across participants), and one guard literal per rule."""
+    m = OrderingModel(study.facts, fixed)
+    guards = [m.new_guard(f"{i}") for i in range(len(study.rules))]
+    for rule, g in zip(study.rules, guards):
+        rule.encode(m, g)
+        if rule.across_participants:
+            rule.encode_against(m, g, earlier)
+    return m, guards
 
 
 class _CountsPath:
@@ -205,7 +221,7 @@ class _CountsPath:
             terms += [int(v) * lit for v, lit in zip(rng.integers(-5, 6, size=len(fm.start[r])), fm.start[r])]
         fm.cp.minimize(sum(terms))
         while True:
-            status, solver = _solve_with(fm.cp, self.guards, _params(seed, self.options))
+            status, solver = _solve_with(fm.cp, self.guards, solver_params(seed, self.options))
             if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
                 _raise_for(status, self.study, self.options, "counts")
             try:
@@ -229,13 +245,7 @@ class _PositionsPath:
 
     def build(self, fixed: list[np.ndarray] | None, earlier: list[list[np.ndarray]]) -> tuple[OrderingModel, list]:
         """The model (whole, or with fixed positions as constants) and its guard literals."""
-        m = OrderingModel(self.study.facts, fixed)
-        guards = [m.new_guard(f"{i}") for i in range(len(self.study.rules))]
-        for rule, g in zip(self.study.rules, guards):
-            rule.encode(m, g)
-            if rule.across_participants:
-                rule.encode_against(m, g, earlier)
-        return m, guards
+        return encode_rules(self.study, fixed, earlier)
 
     def full(self, earlier) -> tuple[OrderingModel, list]:
         if self._full is None or self._full_earlier != len(earlier):
@@ -260,14 +270,14 @@ class _PositionsPath:
             fixed = [seq.copy() for seq in current]
             fixed[r][:] = -1
             m, guards = self.build(fixed, earlier)
-            status, solver = _solve_hinted(m, guards, current, _params(seed + r + 1, self.options))
+            status, solver = _solve_hinted(m, guards, current, solver_params(seed + r + 1, self.options))
             if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
                 break  # this run cannot be mended alone: search the whole design below
             current = m.decode(solver)
         if not self._violated_runs(current, earlier, differ):
             return current
         m, guards = self.full(earlier)
-        status, solver = _solve_hinted(m, guards, current, _params(seed, self.options))
+        status, solver = _solve_hinted(m, guards, current, solver_params(seed, self.options))
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             _raise_for(status, self.study, self.options, "positions", earlier)
         return m.decode(solver)
@@ -345,7 +355,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
         left = deadline - time.perf_counter()
         if left <= 0:
             return None
-        solver = _params(0, options, time_limit=left)
+        solver = solver_params(0, options, time_limit=left)
         status, solver = _solve_with(cp, [guards[i] for i in active], solver)
         if status == cp_model.INFEASIBLE:
             core = set(solver.sufficient_assumptions_for_infeasibility())

@@ -340,3 +340,37 @@ def test_searched_designs_stay_below_the_once_through_estimation_bound():
     # measured when written: this search reached 0.5240, above the periodic form (0.5161), which
     # is why score.py uses the once-through bound for designs presented once
     assert once > periodic
+
+
+def test_a_budget_alone_searches_until_it_runs_out_and_says_so():
+    # the spec asks for one round; a budget given without a round count overrides it (issue 9)
+    study = make_study([8, 8, 8, 8], [{"kind": "max-run", "length": 2}], baseline=3, objective={"iterations": 1})
+    scorer, seed = scorer_for(study)
+    res = Search(study, scorer, "01", seed, [], SearchOptions(budget=1.5, stall=10**6)).run()
+    assert res.stopped == "budget"
+    assert res.iterations > 1 and res.moves > 0 and res.judged > 0
+    # with a round count as well, whichever ends first: here the rounds
+    res = Search(study, scorer, "01", seed, [], SearchOptions(iterations=2, budget=600.0)).run()
+    assert (res.stopped, res.iterations) == ("iterations", 2)
+
+
+def test_budget_alone_searches_even_where_the_spec_asks_for_none(tmp_path):
+    study = make_study([6, 6, 6], [{"kind": "max-run", "length": 2}], objective={"iterations": 0})
+    designs = design_study(study, search=SearchOptions(budget=0.5, stall=10**6))
+    info = designs[0].search
+    assert info["stopped"] == "budget" and "wall-clock" in info["stopped_by"]
+    assert info["swaps_judged"] > 0
+
+
+def test_compiled_and_numpy_moves_reach_valid_designs_of_the_same_quality():
+    # counterbalance weight sends every move through numpy and the Evaluator; without it the same
+    # study runs on the compiled loop. Both must end valid and well above their start.
+    study = make_study([10, 10, 10, 10], [{"kind": "max-run", "length": 2}], baseline=3)
+    for weights in ((1.0, 1.0, 0.0), (1.0, 1.0, 0.2)):
+        scorer, seed = scorer_for(study, weights)
+        s = Search(study, scorer, "01", seed, [], SearchOptions(iterations=3, stall=10**6))
+        res = s.run()
+        assert Judge(study, []).ok(res.runs)
+        assert res.figures.score == pytest.approx(scorer.score(res.runs), rel=1e-9)
+        assert res.history[-1][2] > res.history[0][2]
+        assert s.compiled == (weights[2] == 0.0)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from seqsolve.efficiency.kernels import RCOND, _cholesky
 from seqsolve.moves import NO_LIMIT
 
 
@@ -291,8 +292,6 @@ def apply_swap(t, s, i, j):
 # design and s (p, N) = X'R (each column's products with every trial's regressor). A swap moves the
 # difference of two trial regressors between two columns, so X'X changes in two rows and columns.
 
-RCOND = 1e-10  # the evaluator's singularity rule (fast.RCOND)
-
 #: reassociation lets LLVM vectorise the dot products; no assumptions about NaN or inf (as kernels.py)
 _FAST = {"reassoc", "contract", "nsz", "arcp"}
 
@@ -331,19 +330,8 @@ def a_efficiency(m, contrast, chol):
     Each contrast row's solve starts at its first non-zero weight (the rows of an FIR identity
     contrast need only their own trailing part)."""
     p = m.shape[0]
-    for c in range(p):
-        acc = m[c, c]
-        for k in range(c):
-            acc -= chol[c, k] * chol[c, k]
-        if acc <= RCOND * max(m[c, c], 1e-300):
-            return 0.0
-        chol[c, c] = np.sqrt(acc)
-        inv = 1.0 / chol[c, c]
-        for r in range(c + 1, p):
-            acc = m[r, c]
-            for k in range(c):
-                acc -= chol[r, k] * chol[c, k]
-            chol[r, c] = acc * inv
+    if not _cholesky(m, chol, RCOND):  # the evaluator's own factorisation and singularity rule
+        return 0.0
     total = 0.0
     y = np.zeros(p)
     for q in range(contrast.shape[0]):
@@ -400,6 +388,34 @@ def detection_apply(d, codes, i, j):
 # tv (p, V) = (rows of the 0/1 design) x omega. A swap moves, per lag, one volume between two blocks.
 
 
+@njit(cache=True, inline="always")
+def _moved(mat, x, vi, vj):
+    """mat[x, vj] - mat[x, vi], a missing volume (-1) counting 0: the change of one FIR column's
+    product with row x when a trial's lag bin moves from volume vi to vj."""
+    out = 0.0
+    if vj >= 0:
+        out += mat[x, vj]
+    if vi >= 0:
+        out -= mat[x, vi]
+    return out
+
+
+@njit(cache=True, inline="always")
+def _moved_pair(omega, vi, vj, ui, uj):
+    """(e_vj - e_vi)' Omega (e_uj - e_ui), missing volumes counting 0: the product of two lags'
+    moved columns."""
+    out = 0.0
+    if vj >= 0 and uj >= 0:
+        out += omega[vj, uj]
+    if vj >= 0 and ui >= 0:
+        out -= omega[vj, ui]
+    if vi >= 0 and uj >= 0:
+        out -= omega[vi, uj]
+    if vi >= 0 and ui >= 0:
+        out += omega[vi, ui]
+    return out
+
+
 @njit(cache=True)
 def _fir_swapped_information(e, codes, i, j, out):
     """FIR X'X after swapping trials i and j, into out (p, p)."""
@@ -416,11 +432,7 @@ def _fir_swapped_information(e, codes, i, j, out):
         vi = e.scan[i, lag]
         vj = e.scan[j, lag]
         for x in range(p):
-            w = 0.0
-            if vj >= 0:
-                w += e.tv[x, vj]
-            if vi >= 0:
-                w -= e.tv[x, vi]
+            w = _moved(e.tv, x, vi, vj)
             if ca >= 0:
                 out[ca + lag, x] += w
                 out[x, ca + lag] += w
@@ -431,15 +443,7 @@ def _fir_swapped_information(e, codes, i, j, out):
         vi, vj = e.scan[i, lag], e.scan[j, lag]
         for m in range(lags):
             ui, uj = e.scan[i, m], e.scan[j, m]
-            delta = 0.0
-            if vj >= 0 and uj >= 0:
-                delta += e.omega[vj, uj]
-            if vj >= 0 and ui >= 0:
-                delta -= e.omega[vj, ui]
-            if vi >= 0 and uj >= 0:
-                delta -= e.omega[vi, uj]
-            if vi >= 0 and ui >= 0:
-                delta += e.omega[vi, ui]
+            delta = _moved_pair(e.omega, vi, vj, ui, uj)
             if ca >= 0:
                 out[ca + lag, ca + m] += delta
             if cb >= 0:
@@ -477,11 +481,7 @@ def estimation_apply(e, codes, i, j):
     for lag in range(e.scan.shape[1]):
         vi, vj = e.scan[i, lag], e.scan[j, lag]
         for v in range(n):
-            w = 0.0
-            if vj >= 0:
-                w += e.omega[vj, v]
-            if vi >= 0:
-                w -= e.omega[vi, v]
+            w = _moved(e.omega, v, vi, vj)  # omega is symmetric
             if ca >= 0:
                 e.tv[ca + lag, v] += w
             if cb >= 0:
@@ -534,11 +534,7 @@ def _fir_first_order(e, codes, i, j, h):
     for lag in range(lags):
         vi, vj = e.scan[i, lag], e.scan[j, lag]
         for x in range(p):
-            w = 0.0
-            if vj >= 0:
-                w += e.tv[x, vj]
-            if vi >= 0:
-                w -= e.tv[x, vi]
+            w = _moved(e.tv, x, vi, vj)
             hx = 0.0
             if ca >= 0:
                 hx += h[ca + lag, x]
@@ -547,15 +543,7 @@ def _fir_first_order(e, codes, i, j, h):
             out += 2.0 * hx * w
         for m in range(lags):
             ui, uj = e.scan[i, m], e.scan[j, m]
-            delta = 0.0
-            if vj >= 0 and uj >= 0:
-                delta += e.omega[vj, uj]
-            if vj >= 0 and ui >= 0:
-                delta -= e.omega[vj, ui]
-            if vi >= 0 and uj >= 0:
-                delta -= e.omega[vi, uj]
-            if vi >= 0 and ui >= 0:
-                delta += e.omega[vi, ui]
+            delta = _moved_pair(e.omega, vi, vj, ui, uj)
             hu = 0.0
             if ca >= 0:
                 hu += h[ca + lag, ca + m]

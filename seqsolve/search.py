@@ -297,6 +297,8 @@ class Search:
         self.fir = None  # and estimation
         self.track_scorer: Scorer | None = None
         self.judged = 0  # swaps judged by the local rule checks
+        self._settled: list[np.ndarray] | None = None  # the best design last confirmed by the full checks
+        self._shown: tuple[float, Figures] | None = None  # the figures last shown for the best design
 
     # -- the loop -----------------------------------------------------------------------------
 
@@ -372,8 +374,6 @@ class Search:
             for _ in range(self.options.moves):
                 self._move()
         self._settle()
-        if self.best_score > before + TOL:
-            kind = "swap"
         if self.jitter and self._gap_step():
             kind = "gaps" if self._settle() else kind
         if self.best_score <= before + TOL:
@@ -454,7 +454,7 @@ class Search:
         True if the best design changed since the last call."""
         self.current_score = self.scorer.score(self.current)
         self._track()
-        if getattr(self, "_settled", None) is self.best:
+        if self._settled is self.best:
             return False
         self.best_score = self.best_scorer.score(self.best)
         if not self.judge.ok(self.best):  # the local checks promise this never happens
@@ -544,7 +544,7 @@ class Search:
         return sc.combine(det, est, 0.0)
 
     def _best_figures(self) -> Figures | None:
-        if getattr(self, "_shown", None) is not None and self._shown[0] == self.best_score:
+        if self._shown is not None and self._shown[0] == self.best_score:
             return self._shown[1]
         self._shown = (self.best_score, self.best_scorer.figures(self.best))
         return self._shown[1]

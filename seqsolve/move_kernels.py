@@ -555,11 +555,38 @@ def _fir_first_order(e, codes, i, j, h):
     return -out
 
 
+#: random positions probed for a trial with the same neighbours (a sixth of them match when 6 labels
+#: are spread evenly: 36 contexts)
+CONTEXT_PROBES = 64
+
+
 @njit(cache=True)
-def tracked_moves(t, s, d, e, wd, we, n_moves, batch, screen, late, late_at, current, best, best_codes, run_ends, seed):
+def _same_context(t, codes, r, i):
+    """A random trial of run r with the same left and right neighbours as trial i (run edges
+    count as their own neighbour), or -1 if none was met in CONTEXT_PROBES draws. Swapping two
+    such trials leaves every pair count and every neighbour rule as it was, so under tight
+    transition rules it is far more often valid than a swap of two random trials."""
+    lo = t.run_start[r]
+    hi = lo + t.run_len[r]
+    left = codes[i - 1] if i > lo else -1
+    right = codes[i + 1] if i + 1 < hi else -1
+    for _ in range(CONTEXT_PROBES):
+        j = lo + np.random.randint(0, hi - lo)
+        if j == i or codes[j] == codes[i]:
+            continue
+        if (codes[j - 1] if j > lo else -1) == left and (codes[j + 1] if j + 1 < hi else -1) == right:
+            return j
+    return -1
+
+
+@njit(cache=True)
+def tracked_moves(
+    t, s, d, e, wd, we, n_moves, batch, context, screen, late, late_at, current, best, best_codes, run_ends, seed
+):
     """`n_moves` moves of the search, all compiled (see search.Search._move): each draws `batch`
-    swaps, judges them locally, scores the valid ones (wd x detection + we x estimation; a weight
-    of 0 skips its part) and makes the best one under late acceptance. With screen > 0, estimation
+    swaps (the first `context` of them between trials with the same neighbours), judges them
+    locally, scores the valid ones (wd x detection + we x estimation; a weight of 0 skips its
+    part) and makes the best one under late acceptance. With screen > 0, estimation
     is first estimated to first order (gradient of the trace) and only the `screen` most promising
     candidates are scored exactly; moves are always decided on exact scores. Returns (current
     score, best score, late-acceptance position, swaps judged); best_codes receives each new best."""
@@ -588,8 +615,11 @@ def tracked_moves(t, s, d, e, wd, we, n_moves, batch, screen, late, late_at, cur
         for _b in range(batch):
             i = np.random.randint(0, total)
             r = np.searchsorted(run_ends, i, side="right")
-            j = t.run_start[r] + np.random.randint(0, t.run_len[r])
-            if codes[i] == codes[j]:
+            if _b < context:
+                j = _same_context(t, codes, r, i)
+            else:
+                j = t.run_start[r] + np.random.randint(0, t.run_len[r])
+            if j < 0 or codes[i] == codes[j]:
                 continue
             judged += 1
             if not swap_valid(t, s, i, j):

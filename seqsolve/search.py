@@ -76,6 +76,7 @@ class SearchOptions:
     pool: int = 32  # diverse valid starts sampled from CP-SAT (fewer under the per-position model)
     moves: int = 64  # moves per round
     batch: int = 96  # random swaps drawn per compiled move (judged, the valid ones scored)
+    context: float = 0.5  # share of those swaps drawn between trials with the same neighbours
     screen: int = 8  # compiled moves: estimation scored exactly for this many, the best by its gradient (0: all)
     batch_numpy: int = 24  # swaps drawn per move where they are scored through the Evaluator (slower)
     history: int | None = None  # late acceptance: a move may score below the current design, not below the
@@ -158,6 +159,7 @@ def warm_up(study: Study) -> None:
         0.0,
         0,
         1,
+        0,
         1,
         np.zeros(1),
         0,
@@ -434,6 +436,7 @@ class Search:
             we,
             n,
             self.options.batch,
+            int(round(self.options.context * self.options.batch)),
             self.options.screen,
             self.late,
             self.moves_made,

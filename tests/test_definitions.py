@@ -1,0 +1,96 @@
+"""Definitions behind the reported figures, each held to a calculation written here from first
+principles (numpy/scipy linear algebra, brute force over tiny designs, closed forms), not to
+seqsolve's own evaluators."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+from scipy import linalg
+
+from seqsolve.errors import SpecError
+from seqsolve.score import score_design
+from seqsolve.timing import make_schedules
+from tests.conftest import make_study
+
+
+def fir_information(seq: np.ndarray, modelled: list[int], lags: int, rho: float = 0.0) -> np.ndarray:
+    """Covariance (noise variance 1) of the FIR estimates of one run with one trial per volume
+    (SOA = TR, bins of one TR) and an intercept, after AR(1) prewhitening.
+
+    Written from the textbook model, independent of seqsolve: column (condition i, lag j) is 1 at
+    volume t when the trial at volume t - j is of condition i; the prewhitening is the Prais-Winsten
+    transform (first row times sqrt(1 - rho^2), then y_t - rho y_(t-1)), whose W'W is the inverse
+    AR(1) correlation matrix scaled to unit innovation variance (standard time-series result).
+    Returns cov, shape (len(modelled) * lags, same), ordered condition-major.
+    """
+    n = len(seq)
+    x = np.zeros((n, len(modelled) * lags))
+    for t in range(n):
+        for j in range(lags):
+            if t - j >= 0 and seq[t - j] in modelled:
+                x[t, modelled.index(seq[t - j]) * lags + j] = 1.0
+    full = np.hstack([x, np.ones((n, 1))])
+    w = np.eye(n) - rho * np.eye(n, k=-1)
+    w[0, 0] = np.sqrt(1.0 - rho**2)
+    wx = w @ full
+    return linalg.inv(wx.T @ wx)[: x.shape[1], : x.shape[1]]
+
+
+def _score(study, seq):
+    (sched,) = make_schedules(study, [seq], 0)
+    (row,) = score_design(study, "01", [seq], [sched], with_references=False)
+    return row
+
+
+# --- 1. the D criterion needs independent contrasts ---
+
+
+@pytest.mark.parametrize(
+    "contrasts",
+    ["all-pairs", ["a - c", "b - c", "(a + b)/2 - c"], ["a - b", "b - a"]],
+)
+def test_d_criterion_rejects_redundant_contrasts_naming_the_field(contrasts):
+    with pytest.raises(SpecError) as err:
+        make_study([4, 4, 4, 4], baseline=3, analysis={"criterion": "D", "contrasts": contrasts})
+    text = str(err.value)
+    assert "analysis.contrasts" in text and 'criterion = "D"' in text and 'criterion = "A"' in text
+
+
+def test_a_criterion_keeps_redundant_contrasts():
+    # 1/trace is defined for any contrast set: all-pairs of 3 conditions is accepted under A
+    study = make_study([4, 4, 4, 4], baseline=3, analysis={"contrasts": "all-pairs", "high_pass_cutoff": 0})
+    assert study.spec.analysis.contrasts == "all-pairs"
+
+
+def test_redundant_set_has_zero_determinant_so_rejecting_is_right():
+    # linear algebra (any textbook): the k(k-1)/2 pairwise differences of k conditions span only
+    # k - 1 dimensions, so det(C V C') = 0 for every covariance V; scipy's det confirms it here
+    rng = np.random.default_rng(0)
+    seq = rng.permutation(np.repeat([0, 1, 2, 3], 6))
+    cov = fir_information(seq, [0, 1, 2], lags=1)
+    pairs = np.array([[1, -1, 0], [1, 0, -1], [0, 1, -1]], dtype=float)
+    v = pairs @ cov @ pairs.T
+    assert abs(linalg.det(v)) < 1e-12 * np.prod(np.diag(v))
+
+
+def test_d_with_independent_contrasts_matches_first_principles():
+    analysis = {"criterion": "D", "contrasts": ["a - c", "b - c"], "high_pass_cutoff": 0, "fir_window": 6.0}
+    study = make_study([6, 6, 6, 6], baseline=3, analysis=analysis)
+    rng = np.random.default_rng(1)
+    seq = rng.permutation(np.repeat([0, 1, 2, 3], 6))
+    cov = fir_information(seq, [0, 1, 2], lags=3)
+    c = np.kron(np.array([[1.0, 0, -1], [0, 1, -1]]), np.eye(3))  # each contrast at each lag
+    v = c @ cov @ c.T
+    theirs = linalg.det(v) ** (-1.0 / v.shape[0])  # D-efficiency: det^(-1/q)
+    assert _score(study, seq).estimation == pytest.approx(theirs, rel=1e-6)
+
+
+# --- 2. the estimation bound is reported only where it holds ---
+
+
+def _all_orderings(counts):
+    base = np.repeat(np.arange(len(counts)), counts)
+    return sorted(set(itertools.permutations(base.tolist())))

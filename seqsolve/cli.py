@@ -399,7 +399,8 @@ def score(
     typer.echo(
         "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts; estimation: the same for the FIR model.\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
-        "(same counts and timing). cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
+        "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
+        "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
     )
 
 

@@ -153,14 +153,25 @@ def _per_contrast(setup: AnalysisSetup, md: np.ndarray) -> dict[str, float]:
 
 
 def _estimation_bound(study: Study, setup: AnalysisSetup, idx: list[int], n_volumes: int) -> float | None:
-    """The bound of limits.py when it applies: identity or all-pairs contrasts, bins of one TR."""
+    """The identity-contrast bound of limits.py where it holds, else None: each-vs-baseline
+    contrasts, one trial per TR, bins of one TR, and no AR(1) prewhitening.
+
+    Nuisance regressors beyond the intercept (per-run intercepts, cosines, drifts) only lower the
+    information, so the bound holds with them. Prewhitening does not: W'W has eigenvalues up to
+    (1 + ar1)^2 in units of the innovation variance, so fast-alternating regressors gain
+    information (brute force over tiny designs exceeds the white-noise bound up to 3.3x,
+    tests/test_definitions.py). A bound that holds then, (1 + ar1)^2 / (lags * sum_i 1/n_i),
+    is too loose to be a useful yardstick, so none is reported.
+    """
+    if setup.ar1 != 0:
+        return None
     if study.spec.timing.soa is None or abs(study.spec.timing.soa - setup.tr) > 1e-9 or setup.fir_step != setup.tr:
         return None
     counts = study.facts.counts[idx][:, list(setup.modelled)].sum(axis=0)
-    # nuisance beyond the intercept (drifts, prewhitening) only lowers efficiency: the bound holds
-    if study.spec.analysis.contrasts == "each-vs-baseline":
-        return estimation_bound_identity(counts, n_volumes, setup.fir_lags, once_through_runs=len(idx))
-    return None
+    if study.spec.analysis.contrasts != "each-vs-baseline":
+        return None
+    bound = estimation_bound_identity(counts, n_volumes, setup.fir_lags, once_through_runs=len(idx))
+    return bound if np.isfinite(bound) else None  # infinite: no bound, not a share of 0
 
 
 def score_files(study: Study, paths, with_references: bool = True) -> list[ScoreRow]:

@@ -136,3 +136,36 @@ def test_no_bound_is_reported_with_ar1_where_the_white_noise_one_fails(rho):
     # eigenvalues are at most (1 + rho)^2; it holds, but is loose, hence not reported
     n = np.array(counts[1:], dtype=float)
     assert effs.max() <= (1 + rho) ** 2 / (lags * (1 / n).sum())
+
+
+# --- 3. the HRF kernel: unit area of what is kept ---
+
+
+@pytest.mark.parametrize("resolution", [0.1, 0.05, 0.25])
+def test_kernel_is_the_scipy_double_gamma_cut_at_32_s_with_unit_kept_area(resolution):
+    from scipy import stats
+
+    from seqsolve.efficiency.hrf import sampled_hrf
+
+    # the canonical double gamma (common practice: peak shape 6, undershoot shape 16, ratio 1/6)
+    # from scipy.stats.gamma, sampled below 32 s and divided by the rectangle-rule area kept
+    t = np.arange(0.0, 32.0, resolution)
+    ref = stats.gamma.pdf(t, 6) - stats.gamma.pdf(t, 16) / 6
+    ref /= ref.sum() * resolution
+    h = sampled_hrf(resolution)[0]
+    assert np.allclose(h, ref, rtol=1e-12, atol=1e-15)
+    assert h.sum() * resolution == pytest.approx(1.0, abs=1e-12)
+    # a block longer than the kernel reaches a plateau of exactly 1 (sum of samples times step)
+    plateau = np.convolve(np.ones(int(round(80 / resolution))), h)[int(round(40 / resolution))] * resolution
+    assert plateau == pytest.approx(1.0, abs=1e-12)
+    # what the cut drops, from scipy's gamma CDF: undershoot tail, -1.3e-4 of the whole area (5/6),
+    # as hrf.sampled_hrf documents (so the uncut area 5/6 was the wrong divisor by that much)
+    dropped = 1 - (stats.gamma.cdf(32, 6) - stats.gamma.cdf(32, 16) / 6) / (5 / 6)
+    assert -1.4e-4 < dropped < -1.2e-4
+
+
+def test_nilearn_scales_its_kernel_to_unit_sum_too():
+    # nilearn's spm_hrf divides the sampled kernel by its sum: the convention sampled_hrf follows
+    from nilearn.glm.first_level import spm_hrf
+
+    assert spm_hrf(2.0, oversampling=50).sum() == pytest.approx(1.0, abs=1e-12)

@@ -397,7 +397,9 @@ def score(
         raise typer.Exit(0)
     typer.echo(_score_table(rows))
     typer.echo(
-        "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts; estimation: the same for the FIR model.\n"
+        "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts (criterion A: summed over contrasts, not\n"
+        "averaged; D: det^(-1/q)); estimation: the same for the FIR model; noise in units of the AR(1) innovation\n"
+        "variance. --json adds the reference values (block design's detection and block size, random estimation).\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
         "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
         "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."

@@ -20,7 +20,16 @@ N_RANDOM = 100
 
 @dataclass
 class ScoreRow:
-    """Figures of one run (run = 1, 2, ...) or of all runs together (run = 'all')."""
+    """Figures of one run (run = 1, 2, ...) or of all runs together (run = 'all').
+
+    detection, estimation: 1/trace(C M^-1 C') (criterion A; not divided by the number of contrasts
+    q) or det(C M^-1 C')^(-1/q) (D), with M the information of the prewhitened model; noise is in
+    units of the AR(1) innovation variance (the white-noise variance when ar1 = 0), so the figures
+    are in 1/variance units of the response estimate, per unit innovation variance.
+    references: the values the shares divide by: block_detection (best block design's detection)
+    and block_size (its block, in trials), random_estimation (mean over random_orderings shuffled
+    orderings drawn with numpy's default_rng(0)), estimation_bound (None where none holds).
+    """
 
     participant: str
     run: str
@@ -33,6 +42,7 @@ class ScoreRow:
     detection_vs_block: float | None = None
     estimation_vs_random: float | None = None
     estimation_vs_bound: float | None = None
+    references: dict[str, float | int | None] | None = None
     warnings: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict:
@@ -88,7 +98,13 @@ def _score_orderings(
 
 
 def references(study: Study, setup: AnalysisSetup, runs_index: list[int], seed: int = 0) -> dict[str, float]:
-    """Best block design's detection and the mean random ordering's estimation, same counts and timing."""
+    """The references the shares divide by, for the same counts and timing.
+
+    block_detection: the highest detection efficiency (units as ScoreRow.detection) over block
+    designs of the listed block sizes (trials per block), block_size: the size that reached it;
+    random_estimation: the mean estimation efficiency of N_RANDOM orderings shuffled by numpy's
+    default_rng(seed) (one permutation per run, runs in order, orderings in turn).
+    """
     counts = [study.facts.counts[r] for r in runs_index]
     biggest = int(max(c.max() for c in counts))
     sizes = sorted({b for b in (1, 2, 3, 4, 5, 6, 8, 10, 12, 15, 16, 20, 24, 30, 40) if b <= biggest} | {biggest})
@@ -133,12 +149,13 @@ def score_design(
         )
         if det == 0 or est == 0:
             row.warnings.append("information matrix singular or ill-conditioned: efficiency set to 0")
+        bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
+        row.estimation_vs_bound = est / bound if bound else None
         if with_references:
             ref = references(study, setup, idx)
             row.detection_vs_block = det / ref["block_detection"] if ref["block_detection"] > 0 else None
             row.estimation_vs_random = est / ref["random_estimation"] if ref["random_estimation"] > 0 else None
-        bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
-        row.estimation_vs_bound = est / bound if bound else None
+            row.references = {**ref, "random_orderings": N_RANDOM, "estimation_bound": bound}
         rows.append(row)
     return rows
 

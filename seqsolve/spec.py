@@ -245,14 +245,21 @@ class Analysis(Strict):
         default=128.0, ge=0, description="Discrete-cosine high-pass cutoff in seconds; 0: none."
     )
     drift_degree: int = Field(default=0, ge=0, le=6, description="Polynomial drift terms per run beyond the intercept.")
-    ar1: float = Field(default=0.0, ge=0, lt=1, description="AR(1) coefficient of the noise, for prewhitening.")
+    ar1: float = Field(
+        default=0.0,
+        ge=0,
+        lt=1,
+        description="AR(1) coefficient of the noise, for prewhitening; figures are per unit innovation variance.",
+    )
     contrasts: Annotated[list[str], Field(max_length=1000)] | Literal["each-vs-baseline", "all-pairs"] = Field(
         default="each-vs-baseline", description="Expressions like 'gain - loss', or a named set."
     )
     fir_window: float = Field(default=20.0, gt=0, description="Length of the estimated response (FIR), in seconds.")
     fir_step: float | None = Field(default=None, gt=0, description="FIR bin width in seconds (default: the TR).")
     criterion: Literal["A", "D"] = Field(
-        default="A", description="A-optimality (1/trace) or D-optimality (determinant)."
+        default="A",
+        description="A: 1/trace(C M^-1 C'), summed over contrasts (not averaged); "
+        "D: det(C M^-1 C')^(-1/q), for linearly independent contrasts.",
     )
 
     _fine_enough = _steps("resolution", "fir_step")
@@ -649,7 +656,7 @@ def _check_d_independent(spec: Spec, modelled: list[str], rows: list | None) -> 
             "analysis.contrasts",
             f'with criterion = "D" the contrasts must be linearly independent: {which}, so '
             "det(C M^-1 C') is 0 for every design. List an independent set (at most "
-            f"{rank} here, e.g. each condition minus one reference condition), or use criterion = \"A\", "
+            f'{rank} here, e.g. each condition minus one reference condition), or use criterion = "A", '
             "which takes redundant contrasts",
         )
     ]

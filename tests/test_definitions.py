@@ -169,3 +169,88 @@ def test_nilearn_scales_its_kernel_to_unit_sum_too():
     from nilearn.glm.first_level import spm_hrf
 
     assert spm_hrf(2.0, oversampling=50).sum() == pytest.approx(1.0, abs=1e-12)
+
+
+# --- 4. conventions: noise units, the A criterion's sum, references in score --json ---
+
+
+def hrf_regressors(seq, modelled, tr, resolution=0.1):
+    """Detection regressors of one run with one trial per TR lasting one TR: boxcars on a fine grid
+    convolved with the canonical double gamma of scipy.stats.gamma (shapes 6 and 16, ratio 1/6,
+    common practice), cut at 32 s and scaled to unit kept area, sampled at the start of each volume."""
+    from scipy import stats
+
+    t = np.arange(0.0, 32.0, resolution)
+    h = stats.gamma.pdf(t, 6) - stats.gamma.pdf(t, 16) / 6
+    h /= h.sum() * resolution
+    step = int(round(tr / resolution))
+    n = len(seq)
+    x = np.zeros((n, len(modelled)))
+    for i, c in enumerate(modelled):
+        box = np.repeat((np.asarray(seq) == c).astype(float), step)
+        x[:, i] = (np.convolve(box, h) * resolution)[: n * step : step]
+    return x
+
+
+@pytest.mark.parametrize("rho", [0.0, 0.4, 0.8])
+def test_noise_is_in_units_of_the_innovation_variance(rho):
+    # GLS with scipy's Toeplitz AR(1) correlation R_ij = rho^|i-j| is in units of the marginal noise
+    # variance; the innovation variance is (1 - rho^2) of it (AR(1) textbook result), so seqsolve's
+    # figures, per unit innovation variance, are (1 - rho^2) times the GLS efficiency
+    analysis = {"high_pass_cutoff": 0, "ar1": rho, "contrasts": ["a - b", "a + b - 2 * c"]}
+    study = make_study([6, 6, 6, 6], baseline=3, durations=[2.0] * 4, analysis=analysis)
+    seq = np.random.default_rng(2).permutation(np.repeat([0, 1, 2, 3], 6))
+    x = np.hstack([hrf_regressors(seq, [0, 1, 2], 2.0), np.ones((len(seq), 1))])
+    r = linalg.toeplitz(rho ** np.arange(len(seq)))
+    cov = linalg.inv(x.T @ linalg.solve(r, x))[:3, :3]
+    c = np.array([[1.0, -1, 0], [1, 1, -2]])
+    marginal = 1 / np.trace(c @ cov @ c.T)  # A: the variances summed over contrasts, not averaged
+    assert _score(study, seq).detection == pytest.approx((1 - rho**2) * marginal, rel=1e-6)
+
+
+def test_references_are_printed_by_score_json_and_hold_to_first_principles(tmp_path):
+    import json
+
+    from typer.testing import CliRunner
+
+    from seqsolve.cli import app
+    from seqsolve.score import block_ordering
+
+    spec = tmp_path / "s.toml"
+    spec.write_text(
+        '[study]\nname = "t"\ntask = "t"\nparticipants = 1\nruns = 1\nseed = 0\n'
+        '[[conditions]]\nname = "a"\ntrials = 6\n[[conditions]]\nname = "b"\ntrials = 6\n'
+        '[[conditions]]\nname = "rest"\ntrials = 6\nbaseline = true\n'
+        "[timing]\ntr = 2.0\nsoa = 2.0\n[analysis]\nhigh_pass_cutoff = 0\nfir_window = 4.0\n"
+    )
+    orderings = tmp_path / "orderings.csv"
+    seq = [0, 1, 2, 2, 0, 1, 1, 2, 0, 0, 2, 1, 2, 1, 0, 1, 0, 2]  # six of each, not periodic
+    names = ["a", "b", "rest"]
+    orderings.write_text(
+        "participant,run,position,condition\n" + "".join(f"01,1,{i + 1},{names[c]}\n" for i, c in enumerate(seq))
+    )
+    result = CliRunner().invoke(app, ["score", str(spec), str(orderings), "--json"])
+    assert result.exit_code == 0, result.output
+    (row,) = json.loads(result.output)
+    ref = row["references"]
+    assert set(ref) >= {"block_detection", "block_size", "random_estimation", "random_orderings", "estimation_bound"}
+
+    def detection(s):
+        x = np.hstack([hrf_regressors(s, [0, 1], 2.0), np.ones((len(s), 1))])
+        return 1 / np.trace(linalg.inv(x.T @ x)[:2, :2])  # each-vs-baseline: C = I
+
+    counts = np.array([6, 6, 6])
+    best = block_ordering(counts, 2, ref["block_size"])
+    assert ref["block_detection"] == pytest.approx(detection(best), rel=1e-6)
+    assert row["detection"] == pytest.approx(detection(np.array(seq)), rel=1e-6)
+    assert row["detection_vs_block"] == pytest.approx(detection(np.array(seq)) / detection(best), rel=1e-6)
+    assert row["estimation"] == pytest.approx(1 / np.trace(fir_information(np.array(seq), [0, 1], 2)), rel=1e-6)
+    # the random reference, as documented: 100 shuffles from default_rng(0), FIR efficiency averaged
+    rng = np.random.default_rng(0)
+    shuffled = [rng.permutation(np.repeat([0, 1, 2], 6)) for _ in range(ref["random_orderings"])]
+    mean = np.mean([1 / np.trace(fir_information(s, [0, 1], 2)) for s in shuffled])
+    assert ref["random_estimation"] == pytest.approx(mean, rel=1e-6)
+    # the bound holds here (each-vs-baseline, SOA = TR, no ar1): limits.py's closed form, written out
+    n0 = 6
+    bound = 1 / (2 * (1 / 6 + 1 / 6) + 2 / n0 + 2 / (n0 + 1))
+    assert ref["estimation_bound"] == pytest.approx(bound, rel=1e-12)

@@ -35,6 +35,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain help: rich markup would take "[analysis]" and "[objective]" (spec sections) for style tags and drop them
+    rich_markup_mode=None,
 )
 
 SpecArg = Annotated[Path, typer.Argument(help="The study's spec file (TOML).", show_default=False)]
@@ -190,7 +192,8 @@ def generate(
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
-    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's objective.
+    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's [objective]
+    (weights of detection, estimation and counterbalancing).
 
     Ctrl-C or SIGTERM stops the search and writes the best designs found so far, then exits 130 (Ctrl-C)
     or 143 (SIGTERM), so a script can tell a cut-short search from a finished one.

@@ -8,7 +8,7 @@ import itertools
 
 import numpy as np
 import pytest
-from scipy import linalg
+from scipy import linalg, signal
 
 from seqsolve.errors import SpecError
 from seqsolve.score import score_design
@@ -254,3 +254,49 @@ def test_references_are_printed_by_score_json_and_hold_to_first_principles(tmp_p
     n0 = 6
     bound = 1 / (2 * (1 / 6 + 1 / 6) + 2 / n0 + 2 / (n0 + 1))
     assert ref["estimation_bound"] == pytest.approx(bound, rel=1e-12)
+
+
+# --- 6. durations that are not whole samples of the fine grid ---
+
+
+def boxcar_regressors(seq, modelled, durations, soa, tr, resolution):
+    """Detection regressors of one run, one trial every `soa` seconds (onsets on the grid), trial of
+    condition c lasting durations[c] seconds: a boxcar on a grid of `resolution` s whose last sample
+    carries the fraction of a sample that the duration covers (so its integral is the duration),
+    convolved with scipy.stats.gamma's double gamma (6, 16, 1/6; cut at 32 s, unit kept area)."""
+    from scipy import stats
+
+    t = np.arange(0.0, 32.0, resolution)
+    h = stats.gamma.pdf(t, 6) - stats.gamma.pdf(t, 16) / 6
+    h /= h.sum() * resolution
+    per_soa, per_tr = int(round(soa / resolution)), int(round(tr / resolution))
+    n_fine = len(seq) * per_soa
+    x = np.zeros((n_fine // per_tr, len(modelled)))
+    for i, c in enumerate(modelled):
+        box = np.zeros(n_fine + 100)
+        cover = durations[c] / resolution
+        whole, frac = int(np.floor(cover + 1e-9)), cover - np.floor(cover + 1e-9)
+        for k in np.flatnonzero(np.asarray(seq) == c):
+            box[k * per_soa : k * per_soa + whole] = 1.0
+            if frac > 1e-9:
+                box[k * per_soa + whole] += frac
+        x[:, i] = (signal.fftconvolve(box, h) * resolution)[:n_fine:per_tr]
+    return x
+
+
+def _detection_first_principles(seq, durations, resolution):
+    x = np.hstack([boxcar_regressors(seq, [0, 1, 2], durations, 2.0, 2.0, resolution), np.ones((len(seq), 1))])
+    return 1 / np.trace(linalg.inv(x.T @ x)[:3, :3])
+
+
+@pytest.mark.parametrize("durations", [[0.03, 0.25, 1.0, 2.0], [0.25, 0.25, 0.25, 2.0], [0.03, 0.07, 0.15, 2.0]])
+def test_partial_samples_count_by_their_fraction(durations):
+    study = make_study([8, 8, 8, 8], baseline=3, durations=durations, analysis={"high_pass_cutoff": 0})
+    seq = np.random.default_rng(4).permutation(np.repeat([0, 1, 2, 3], 8))
+    ours = _score(study, seq).detection
+    # exactly the rectangle-rule model with the last sample weighted by its fraction (1e-6)
+    assert ours == pytest.approx(_detection_first_principles(seq, durations, 0.1), rel=1e-6)
+    # and close to the same model on a grid 100 times finer, where every duration is whole samples
+    # (0.03 s used to count as a whole 0.1 s sample: 11x this figure; 0.25 s as 0.2 s)
+    fine = _detection_first_principles(seq, durations, 0.001)
+    assert ours == pytest.approx(fine, rel=0.01)  # measured: within 0.4 %

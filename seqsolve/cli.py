@@ -35,6 +35,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain help: rich markup would take "[analysis]" and "[objective]" (spec sections) for style tags and drop them
+    rich_markup_mode=None,
 )
 
 SpecArg = Annotated[Path, typer.Argument(help="The study's spec file (TOML).", show_default=False)]
@@ -190,7 +192,8 @@ def generate(
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
-    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's objective.
+    Every ordering obeys every rule (CP-SAT builds them); the search steers toward the spec's [objective]
+    (weights of detection, estimation and counterbalancing).
 
     Ctrl-C or SIGTERM stops the search and writes the best designs found so far, then exits 130 (Ctrl-C)
     or 143 (SIGTERM), so a script can tell a cut-short search from a finished one.
@@ -397,9 +400,12 @@ def score(
         raise typer.Exit(0)
     typer.echo(_score_table(rows))
     typer.echo(
-        "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts; estimation: the same for the FIR model.\n"
+        "\ndetection: 1/trace(C M^-1 C') of the HRF model's contrasts (criterion A: summed over contrasts, not\n"
+        "averaged; D: det^(-1/q)); estimation: the same for the FIR model; noise in units of the AR(1) innovation\n"
+        "variance. --json adds the reference values (block design's detection and block size, random estimation).\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
-        "(same counts and timing). cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
+        "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
+        "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
     )
 
 

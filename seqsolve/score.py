@@ -20,7 +20,16 @@ N_RANDOM = 100
 
 @dataclass
 class ScoreRow:
-    """Figures of one run (run = 1, 2, ...) or of all runs together (run = 'all')."""
+    """Figures of one run (run = 1, 2, ...) or of all runs together (run = 'all').
+
+    detection, estimation: 1/trace(C M^-1 C') (criterion A; not divided by the number of contrasts
+    q) or det(C M^-1 C')^(-1/q) (D), with M the information of the prewhitened model; noise is in
+    units of the AR(1) innovation variance (the white-noise variance when ar1 = 0), so the figures
+    are in 1/variance units of the response estimate, per unit innovation variance.
+    references: the values the shares divide by: block_detection (best block design's detection)
+    and block_size (its block, in trials), random_estimation (mean over random_orderings shuffled
+    orderings drawn with numpy's default_rng(0)), estimation_bound (None where none holds).
+    """
 
     participant: str
     run: str
@@ -33,6 +42,7 @@ class ScoreRow:
     detection_vs_block: float | None = None
     estimation_vs_random: float | None = None
     estimation_vs_bound: float | None = None
+    references: dict[str, float | int | None] | None = None
     warnings: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict:
@@ -88,7 +98,13 @@ def _score_orderings(
 
 
 def references(study: Study, setup: AnalysisSetup, runs_index: list[int], seed: int = 0) -> dict[str, float]:
-    """Best block design's detection and the mean random ordering's estimation, same counts and timing."""
+    """The references the shares divide by, for the same counts and timing.
+
+    block_detection: the highest detection efficiency (units as ScoreRow.detection) over block
+    designs of the listed block sizes (trials per block), block_size: the size that reached it;
+    random_estimation: the mean estimation efficiency of N_RANDOM orderings shuffled by numpy's
+    default_rng(seed) (one permutation per run, runs in order, orderings in turn).
+    """
     counts = [study.facts.counts[r] for r in runs_index]
     biggest = int(max(c.max() for c in counts))
     sizes = sorted({b for b in (1, 2, 3, 4, 5, 6, 8, 10, 12, 15, 16, 20, 24, 30, 40) if b <= biggest} | {biggest})
@@ -133,12 +149,13 @@ def score_design(
         )
         if det == 0 or est == 0:
             row.warnings.append("information matrix singular or ill-conditioned: efficiency set to 0")
+        bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
+        row.estimation_vs_bound = est / bound if bound else None
         if with_references:
             ref = references(study, setup, idx)
             row.detection_vs_block = det / ref["block_detection"] if ref["block_detection"] > 0 else None
             row.estimation_vs_random = est / ref["random_estimation"] if ref["random_estimation"] > 0 else None
-        bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
-        row.estimation_vs_bound = est / bound if bound else None
+            row.references = {**ref, "random_orderings": N_RANDOM, "estimation_bound": bound}
         rows.append(row)
     return rows
 
@@ -153,14 +170,25 @@ def _per_contrast(setup: AnalysisSetup, md: np.ndarray) -> dict[str, float]:
 
 
 def _estimation_bound(study: Study, setup: AnalysisSetup, idx: list[int], n_volumes: int) -> float | None:
-    """The bound of limits.py when it applies: identity or all-pairs contrasts, bins of one TR."""
+    """The identity-contrast bound of limits.py where it holds, else None: each-vs-baseline
+    contrasts, one trial per TR, bins of one TR, and no AR(1) prewhitening.
+
+    Nuisance regressors beyond the intercept (per-run intercepts, cosines, drifts) only lower the
+    information, so the bound holds with them. Prewhitening does not: W'W has eigenvalues up to
+    (1 + ar1)^2 in units of the innovation variance, so fast-alternating regressors gain
+    information (brute force over tiny designs exceeds the white-noise bound up to 3.3x,
+    tests/test_definitions.py). A bound that holds then, (1 + ar1)^2 / (lags * sum_i 1/n_i),
+    is too loose to be a useful yardstick, so none is reported.
+    """
+    if setup.ar1 != 0:
+        return None
     if study.spec.timing.soa is None or abs(study.spec.timing.soa - setup.tr) > 1e-9 or setup.fir_step != setup.tr:
         return None
     counts = study.facts.counts[idx][:, list(setup.modelled)].sum(axis=0)
-    # nuisance beyond the intercept (drifts, prewhitening) only lowers efficiency: the bound holds
-    if study.spec.analysis.contrasts == "each-vs-baseline":
-        return estimation_bound_identity(counts, n_volumes, setup.fir_lags, once_through_runs=len(idx))
-    return None
+    if study.spec.analysis.contrasts != "each-vs-baseline":
+        return None
+    bound = estimation_bound_identity(counts, n_volumes, setup.fir_lags, once_through_runs=len(idx))
+    return bound if np.isfinite(bound) else None  # infinite: no bound, not a share of 0
 
 
 def score_files(study: Study, paths, with_references: bool = True) -> list[ScoreRow]:

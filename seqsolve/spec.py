@@ -245,14 +245,21 @@ class Analysis(Strict):
         default=128.0, ge=0, description="Discrete-cosine high-pass cutoff in seconds; 0: none."
     )
     drift_degree: int = Field(default=0, ge=0, le=6, description="Polynomial drift terms per run beyond the intercept.")
-    ar1: float = Field(default=0.0, ge=0, lt=1, description="AR(1) coefficient of the noise, for prewhitening.")
+    ar1: float = Field(
+        default=0.0,
+        ge=0,
+        lt=1,
+        description="AR(1) coefficient of the noise, for prewhitening; figures are per unit innovation variance.",
+    )
     contrasts: Annotated[list[str], Field(max_length=1000)] | Literal["each-vs-baseline", "all-pairs"] = Field(
         default="each-vs-baseline", description="Expressions like 'gain - loss', or a named set."
     )
     fir_window: float = Field(default=20.0, gt=0, description="Length of the estimated response (FIR), in seconds.")
     fir_step: float | None = Field(default=None, gt=0, description="FIR bin width in seconds (default: the TR).")
     criterion: Literal["A", "D"] = Field(
-        default="A", description="A-optimality (1/trace) or D-optimality (determinant)."
+        default="A",
+        description="A: 1/trace(C M^-1 C'), summed over contrasts (not averaged); "
+        "D: det(C M^-1 C')^(-1/q), for linearly independent contrasts.",
     )
 
     _fine_enough = _steps("resolution", "fir_step")
@@ -609,18 +616,50 @@ def _run_seconds(spec: Spec, n_trials: int) -> float:
 def _check_contrasts(spec: Spec) -> list[Problem]:
     from seqsolve.efficiency.contrasts import ContrastSyntaxError, parse_contrast
 
-    if isinstance(spec.analysis.contrasts, str):
-        return []
     modelled = [c.name for c in spec.conditions if not c.baseline]
-    out = []
+    if isinstance(spec.analysis.contrasts, str):
+        return _check_d_independent(spec, modelled, None)
+    out, rows = [], []
     for i, text in enumerate(spec.analysis.contrasts, start=1):
         try:
-            parse_contrast(text, modelled)
+            rows.append(parse_contrast(text, modelled))
         except ContrastSyntaxError as exc:
             out.append(Problem(f"analysis.contrasts[{i}]", str(exc)))
         except RecursionError:
             out.append(Problem(f"analysis.contrasts[{i}]", "parentheses nested too deeply"))
-    return out
+    return out or _check_d_independent(spec, modelled, rows)
+
+
+def _check_d_independent(spec: Spec, modelled: list[str], rows: list | None) -> list[Problem]:
+    """With criterion = "D" the contrasts must be linearly independent: D-efficiency is
+    det(C M^-1 C')^(-1/q), and a redundant C (rank < q rows) makes that determinant 0 for every
+    design, so the figure says nothing. (A, 1/trace, takes redundant sets: nothing to check.)"""
+    from seqsolve.efficiency.setup import named_contrasts  # setup imports this module
+
+    if spec.analysis.criterion != "D" or not modelled:
+        return []
+    if rows is None:
+        c, labels = named_contrasts(spec.analysis.contrasts, modelled)
+    else:
+        c, labels = np.array(rows), list(spec.analysis.contrasts)
+    rank = int(np.linalg.matrix_rank(c))
+    if rank == c.shape[0]:
+        return []
+    first = next(i for i in range(c.shape[0]) if np.linalg.matrix_rank(c[: i + 1]) <= i)
+    which = (
+        f"'{spec.analysis.contrasts}' gives {c.shape[0]} contrasts of rank {rank}"
+        if rows is None
+        else f"contrast {first + 1} ({shorten(labels[first])}) is a combination of the ones before it"
+    )
+    return [
+        Problem(
+            "analysis.contrasts",
+            f'with criterion = "D" the contrasts must be linearly independent: {which}, so '
+            "det(C M^-1 C') is 0 for every design. List an independent set (at most "
+            f'{rank} here, e.g. each condition minus one reference condition), or use criterion = "A", '
+            "which takes redundant contrasts",
+        )
+    ]
 
 
 def _level_map(spec: Spec) -> dict[str, dict[str, list[str]]]:

@@ -142,3 +142,24 @@ def test_score_prints_a_table_and_json(generated):
     manifest = json.loads((generated / "manifest.json").read_text())
     first = manifest["participants"][0]["metrics"]["1"]
     assert first["detection"] == pytest.approx(rows[0]["detection"], rel=1e-8)
+
+
+def test_every_help_keeps_the_bracketed_section_names():
+    # rich markup reads "[analysis]" as a style tag and drops it ("the spec's : detection"): every
+    # "[name]" written in a command's help or its options' help must reach the rendered --help
+    import re
+
+    import typer
+
+    group = typer.main.get_command(app)
+    seen = set()
+    for name, cmd in [("", group)] + sorted(group.commands.items()):
+        texts = [cmd.help or ""] + [getattr(p, "help", None) or "" for p in cmd.params]
+        wanted = set(re.findall(r"\[[a-z_]+\]", " ".join(texts)))
+        result = runner.invoke(app, ([name] if name else []) + ["--help"], terminal_width=200)
+        assert result.exit_code == 0, result.output
+        for section in wanted:
+            assert section in result.output, f"{name or 'seqsolve'} --help lost {section}"
+        assert "spec's :" not in result.output and "spec's ." not in result.output
+        seen |= wanted
+    assert {"[analysis]", "[objective]"} <= seen

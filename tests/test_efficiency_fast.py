@@ -48,6 +48,14 @@ CASES = {
     ),
     # SOA half a TR: two trials share each volume at the same lag (no bitsets for FIR columns)
     "two trials per volume": dict(counts=[8, 8, 8], baseline=2, timing={"tr": 2.0, "soa": 1.0, "lead_out": 12.0}),
+    # durations that are not whole samples of the grid: a last sample of fractional weight
+    "partial samples": dict(
+        counts=[7, 7, 7],
+        baseline=None,
+        durations=[0.03, 0.25, 1.37],
+        timing={"tr": 2.0, "soa": 2.0, "lead_out": 12.0},
+        analysis={"contrasts": ["a - b", "b - c"], "ar1": 0.2},
+    ),
     # contrast rows whose first weights come in no order (the kernels reorder them)
     "contrasts out of order": dict(
         counts=[7, 7, 7, 7],
@@ -143,9 +151,10 @@ def test_compiled_neighbours_equal_numpy_ones_everywhere(case, shared, monkeypat
         assert close(getattr(a, name), getattr(b, name)), name
 
 
+@pytest.mark.parametrize("case", ["plain", "partial samples"])
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
-def test_circular_presentation_matches_reference(compiled):
-    study, setup, layout, codes, rng = build("plain")
+def test_circular_presentation_matches_reference(compiled, case):
+    study, setup, layout, codes, rng = build(case)
     ev = Evaluator(setup, layout, study.facts.n_conditions, circular=True, compiled=compiled)
     if compiled:  # responses wrap round the run: some overlapping trials lie far apart in the list
         assert len(ev.full_detection.far_i) > 0

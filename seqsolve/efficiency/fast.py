@@ -250,14 +250,14 @@ class Evaluator:
         out.eliminate_zeros()
         return out
 
-    def _duration_groups(self) -> tuple[list[int], np.ndarray]:
+    def _duration_groups(self) -> tuple[list[float], np.ndarray]:
         """The distinct boxcar lengths (in order of first use) and each condition's group among them."""
         lens = self.layout.box_len
         groups, group = [], np.zeros(self.k, dtype=int)
         for c in range(self.k):
-            if lens[c] not in groups:
-                groups.append(int(lens[c]))
-            group[c] = groups.index(int(lens[c]))
+            if float(lens[c]) not in groups:
+                groups.append(float(lens[c]))
+            group[c] = groups.index(float(lens[c]))
         return groups, group
 
     def _detection_part(self) -> _Part:

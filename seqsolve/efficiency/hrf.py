@@ -34,21 +34,23 @@ def sampled_hrf(
 ) -> np.ndarray:
     """Response kernels on a grid of `resolution` seconds, shape (n_basis, n_samples).
 
-    The canonical shape is scaled to unit area, so a long block reaches a plateau of 1. The
-    temporal derivative (optional second row) is the finite difference of the first, scaled to
-    the same sum of squares. A custom shape (samples, step) is interpolated onto the grid and
-    scaled to unit area.
+    The canonical shape is sampled at 0, resolution, ... below LENGTH (32 s; the tail beyond is
+    undershoot of area -1.3e-4 of the whole) and scaled so that what is kept has unit area by the rectangle rule:
+    sum(h) * resolution = 1, so a long block reaches a plateau of exactly 1 (nilearn scales its
+    kernel the same way, to a unit sum on its grid). The temporal derivative (optional second row)
+    is the finite difference of the first, scaled to the same sum of squares. A custom shape
+    (samples, step) is interpolated onto the grid and scaled the same way (unless its area is 0).
     """
     t = np.arange(0.0, LENGTH, resolution)
     if custom is None:
-        h = double_gamma(t) / (1.0 - UNDERSHOOT_RATIO)
+        h = double_gamma(t)
     else:
         samples, step = custom
         ts = np.arange(len(samples)) * step
         t = np.arange(0.0, ts[-1] + resolution / 2, resolution)
         h = np.interp(t, ts, samples)
-        area = h.sum() * resolution
-        h = h / area if abs(area) > 1e-12 else h
+    area = h.sum() * resolution
+    h = h / area if abs(area) > 1e-12 else h
     if not derivative:
         return h[None, :]
     d = np.gradient(h, resolution)

@@ -12,6 +12,9 @@ loses the trials whose lag-j volume falls past the end: per lag n_i(j) <= n_i an
 per run, so the identity bound becomes 1 / sum_j (sum_i 1/n_i + Q/(n_0 + j R)) with R runs. (The
 periodic form can be beaten once through: the search found such a design.) The pairwise bound
 needs no change: it only grows with 1/n_i(j).
+All of this assumes white noise. AR(1) prewhitening breaks it: W'W has eigenvalues up to (1 + rho)^2
+(innovation-variance units), so fast-alternating regressors gain information and brute force over tiny
+designs passes the identity bound (2.4x at rho = 0.9); score.py reports no bound when ar1 != 0.
 Detection of one event type in a periodic design of N volumes with n events and an intercept:
   x' (I - J/N) x = sum_{f != 0} |S(f)|^2 |G(f)|^2 / N <= max_f |G(f)|^2 * n (1 - n/N)   (Parseval),
 with G the DFT of the volume-sampled response to one trial.

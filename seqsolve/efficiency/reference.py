@@ -17,14 +17,18 @@ def detection_matrix(setup: AnalysisSetup, layout: Layout, codes: np.ndarray, ci
     blocks = []
     for r, scans in enumerate(layout.scan_idx):
         in_run = layout.run_of == r
-        n_fine = max(scans.max() + 1, layout.onset_idx[in_run].max(initial=0) + layout.box_len.max() + 1)
+        longest = int(np.ceil(layout.box_len.max()))
+        n_fine = max(scans.max() + 1, layout.onset_idx[in_run].max(initial=0) + longest + 1)
         if circular:
             n_fine = layout.run_fine[r]
         cols = []
         for c in setup.modelled:
             box = np.zeros(n_fine)
+            whole = int(np.floor(layout.box_len[c]))
             for a in layout.onset_idx[in_run & (codes == c)]:
-                box[a : a + layout.box_len[c]] = 1.0
+                box[a : a + whole] = 1.0
+                if a + whole < n_fine:  # the partly covered last sample (frac 0: nothing)
+                    box[a + whole] += layout.box_len[c] - whole
             for h in setup.kernels:
                 full = np.convolve(box, h) * setup.resolution
                 if circular:

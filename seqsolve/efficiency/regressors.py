@@ -39,27 +39,36 @@ def _windows(layout: Layout, reach: int, circular: bool):
         row += len(scans)
 
 
-def trial_responses(setup: AnalysisSetup, layout: Layout, box_len: int, circular: bool = False) -> sparse.csc_matrix:
-    """Unfiltered response of every trial to a boxcar of box_len samples, sampled at the volumes.
+def trial_responses(setup: AnalysisSetup, layout: Layout, box_len: float, circular: bool = False) -> sparse.csc_matrix:
+    """Unfiltered response of every trial to a boxcar of box_len samples (float: whole samples of
+    weight 1, then one of weight frac(box_len)), sampled at the volumes.
 
     Returns a sparse matrix (n_scans, n_trials * n_basis); column i * n_basis + b is trial i's
     response through kernel b (zero outside its run). The response is step(d) - step(d - box_len),
-    step the kernel's running sum, summed over wraps when the run is presented circularly.
+    step the kernel's running sum (linearly interpolated between samples, which is what the
+    fractional last sample gives), summed over wraps when the run is presented circularly.
     """
     steps = np.cumsum(setup.kernels, axis=1) * setup.resolution  # step responses
     nb, kl = steps.shape
+    whole = int(np.floor(box_len))
+    frac = float(box_len) - whole
 
     def step_at(j):
         return np.where(j[None] < 0, 0.0, steps[:, np.clip(j, 0, kl - 1)])
 
+    def response(d):
+        # boxcar = 1 on samples 0..whole-1, frac on sample `whole`: a difference of step responses
+        out = step_at(d) - step_at(d - whole)
+        return out + frac * (step_at(d - whole) - step_at(d - whole - 1)) if frac else out
+
     rows, cols, vals = [], [], []
-    for row, pos, trials, d in _windows(layout, kl - 1 + box_len, circular):
+    for row, pos, trials, d in _windows(layout, kl + whole, circular):
         if circular:  # the response wraps round the run, possibly more than once
             fine = layout.run_fine[int(layout.run_of[trials[0]])]
-            wraps = int(np.ceil((kl + box_len) / fine)) + 1
-            resp = sum(step_at(d + m * fine) - step_at(d + m * fine - box_len) for m in range(wraps))
+            wraps = int(np.ceil((kl + whole + 1) / fine)) + 1
+            resp = sum(response(d + m * fine) for m in range(wraps))
         else:
-            resp = step_at(d) - step_at(d - box_len)  # (nb, positions, trials)
+            resp = response(d)  # (nb, positions, trials)
         b, s, t = np.nonzero(resp)
         rows.append(row + pos[s])
         cols.append(trials[t] * nb + b)

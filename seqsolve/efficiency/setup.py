@@ -18,7 +18,9 @@ class AnalysisSetup:
     """Everything the evaluators need besides the schedule. Times in seconds.
 
     kernels: shape (n_basis, n_samples) on the fine grid; modelled: condition codes with regressors
-    (every condition but the baseline); contrast: shape (n_contrasts, n_modelled).
+    (every condition but the baseline); contrast: shape (n_contrasts, n_modelled). ar1: the AR(1)
+    coefficient of the noise; efficiencies are per unit innovation variance (see README, Scoring).
+    criterion: "A" (1/trace, not divided by n_contrasts) or "D" (det^(-1/n_contrasts)).
     """
 
     tr: float

@@ -16,6 +16,7 @@ from seqsolve.audit import audit_orderings
 from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
+from seqsolve.io.bids import bids_files
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
@@ -312,8 +313,9 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
     return out
 
 
-def output_files(study: Study, designs: list[Design], front: list | None = None) -> dict[str, str]:
-    files = {}
+def output_files(study: Study, designs: list[Design], front: list | None = None) -> dict[str, str | bytes]:
+    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files)."""
+    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"])
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
             files[events_filename(study, d.label, r)] = events_tsv(study, s)

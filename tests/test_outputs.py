@@ -1,0 +1,118 @@
+"""The output folder as labs use it: a BIDS dataset that pybids' validating layout loads, participant
+labels kept as text, stimulus-ready trial tables, and onset files for analysis packages."""
+
+from __future__ import annotations
+
+import csv
+import fnmatch
+import json
+from pathlib import Path
+
+import pytest
+
+from seqsolve.generate import generate
+from seqsolve.search import SearchOptions
+from seqsolve.spec import load_study
+
+ROOT = Path(__file__).resolve().parents[1]
+#: fixed soa with a baseline and one factor; jittered gaps with two factors and text labels (p01)
+EXAMPLES = {
+    "reward_cue": ROOT / "examples" / "reward_cue.toml",
+    "word_reading": ROOT / "examples" / "word_reading.toml",
+}
+
+
+@pytest.fixture(scope="module", params=sorted(EXAMPLES))
+def made(request, tmp_path_factory):
+    """(study, output folder) of a generate without search (iterations 0: quick, same files)."""
+    study = load_study(EXAMPLES[request.param])
+    out = tmp_path_factory.mktemp(request.param) / "designs"
+    generate(study, out, search=SearchOptions(iterations=0))
+    return study, out
+
+
+def _files(out: Path) -> list[str]:
+    return sorted(p.relative_to(out).as_posix() for p in out.rglob("*") if p.is_file())
+
+
+def _ignored(rel: str, patterns: list[str]) -> bool:
+    """Whether .bidsignore's patterns (gitignore style: a trailing / is a folder) cover rel."""
+    for pat in patterns:
+        if pat.endswith("/") and rel.startswith(pat):
+            return True
+        if fnmatch.fnmatch(rel, pat):
+            return True
+    return False
+
+
+# ---------------------------------------------------------------------------------------------
+# 1. a BIDS dataset skeleton
+
+
+def test_pybids_validating_layout_loads_the_folder_and_finds_every_events_file(made):
+    bids = pytest.importorskip("bids")  # pybids, in the test extra
+    study, out = made
+    layout = bids.BIDSLayout(out, validate=True)  # raises BIDSValidationError on a bad dataset_description
+    events = layout.get(suffix="events", extension=".tsv", return_type="filename")
+    assert len(events) == len(study.participants) * study.facts.n_runs
+    assert sorted(layout.get_subjects()) == sorted(study.participants)
+    assert layout.get_tasks() == [study.spec.study.task]
+    assert sorted(layout.get_runs()) == list(range(1, study.facts.n_runs + 1))
+    assert layout.get_dataset_description()["Name"] == study.spec.study.name
+
+
+def test_every_file_is_bids_or_listed_in_bidsignore(made):
+    """The BIDS validator's path rules (bids_validator, shipped with pybids) accept every file that
+    .bidsignore does not list, and .bidsignore lists nothing that is BIDS."""
+    validator = pytest.importorskip("bids_validator").BIDSValidator()
+    _, out = made
+    patterns = [line for line in (out / ".bidsignore").read_text().splitlines() if line.strip()]
+    for rel in _files(out):
+        if rel == ".bidsignore":
+            continue
+        assert validator.is_bids("/" + rel) != _ignored(rel, patterns), rel
+
+
+def test_dataset_description_follows_the_bids_schema(made):
+    """Required and allowed fields as the BIDS schema (bidsschematools, shipped with pybids) states them."""
+    schema = pytest.importorskip("bidsschematools.schema").load_schema()
+    study, out = made
+    desc = json.loads((out / "dataset_description.json").read_text())
+    meta = schema["objects"]["metadata"]
+    assert {"Name", "BIDSVersion"} <= set(desc)
+    assert desc["DatasetType"] in meta["DatasetType"]["enum"]
+    generated = meta["GeneratedBy"]["items"]
+    for entry in desc["GeneratedBy"]:
+        assert set(generated["required"]) <= set(entry) <= set(generated["properties"])
+    assert desc["GeneratedBy"][0]["Name"] == "seqsolve"
+    assert study.spec_hash in desc["GeneratedBy"][0]["Description"]
+    major, minor, _ = (int(x) for x in desc["BIDSVersion"].split("."))
+    newest = tuple(int(x) for x in schema["bids_version"].split(".")[:2])
+    assert (major, minor) <= newest  # a version that exists
+
+
+def test_participant_labels_stay_text_in_pandas(made):
+    pd = pytest.importorskip("pandas")
+    study, out = made
+    expected = [f"sub-{p}" for p in study.participants]
+    participants = pd.read_csv(out / "participants.tsv", sep="\t")
+    assert list(participants.columns)[0] == "participant_id"  # BIDS: participant_id comes first
+    assert participants["participant_id"].tolist() == expected
+    orderings = pd.read_csv(out / "orderings.csv")
+    assert orderings["participant_id"].drop_duplicates().tolist() == expected
+    # the label column read as text by the csv module: the same labels as the spec
+    with (out / "orderings.csv").open(newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert all(r["participant_id"] == f"sub-{r['participant']}" for r in rows)
+    assert [r["participant"] for r in rows[:1]] == [study.participants[0]]
+
+
+def test_audit_reads_a_table_that_pandas_saved_again(made, tmp_path):
+    """pandas turns '01' into 1 in the participant column; participant_id keeps the label."""
+    pd = pytest.importorskip("pandas")
+    from seqsolve.io.tables import read_orderings
+
+    study, out = made
+    again = tmp_path / "again.csv"
+    pd.read_csv(out / "orderings.csv").to_csv(again, index=False)
+    assert list(read_orderings(study, [again])) == list(study.participants)

@@ -17,6 +17,7 @@ from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.bids import bids_files
+from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
@@ -319,6 +320,7 @@ def output_files(study: Study, designs: list[Design], front: list | None = None)
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
             files[events_filename(study, d.label, r)] = events_tsv(study, s)
+            files[trials_filename(d.label, r)] = trials_csv(study, s)
     files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs})
     if front:
         from seqsolve.tradeoff import front_tsv

@@ -116,3 +116,63 @@ def test_audit_reads_a_table_that_pandas_saved_again(made, tmp_path):
     again = tmp_path / "again.csv"
     pd.read_csv(out / "orderings.csv").to_csv(again, index=False)
     assert list(read_orderings(study, [again])) == list(study.participants)
+
+
+# ---------------------------------------------------------------------------------------------
+# 2. stimulus-ready trial tables
+
+
+def _play(path: Path) -> list[dict]:
+    """Read a trial table as a stimulus loop does (csv.DictReader, no reshaping) and 'play' it: wait
+    until each trial's onset, show it for its duration, then wait its gap; returns the rows with the
+    clock value at each trial's start."""
+    with path.open(newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    clock = float(rows[0]["onset"])  # the lead-in: the first trial's onset after the first volume
+    for row in rows:
+        assert float(row["onset"]) == pytest.approx(clock, abs=1e-6), (path.name, row["position"])
+        row["clock"] = clock
+        clock += float(row["duration"]) + float(row["gap"])
+    rows[-1]["end"] = clock
+    return rows
+
+
+def test_a_stimulus_loop_plays_each_run_as_the_spec_declares(made):
+    study, out = made
+    manifest = json.loads((out / "manifest.json").read_text())
+    t = study.spec.timing
+    factors = sorted({f for c in study.spec.conditions for f in c.levels})
+    for part in manifest["participants"]:
+        for run in part["runs"]:
+            path = out / "stimulus" / f"sub-{part['label']}_run-{run['run']}_trials.csv"
+            rows = _play(path)
+            assert list(rows[0])[:2] == ["position", "condition"]
+            assert sorted(list(rows[0])[2:-4]) == factors  # one column per factor, before the times
+            assert [int(r["position"]) for r in rows] == list(range(1, len(rows) + 1))
+            onsets = [float(r["onset"]) for r in rows]
+            assert all(b > a for a, b in zip(onsets, onsets[1:]))
+            assert onsets[0] == pytest.approx(t.lead_in)
+            assert all(float(r["gap"]) >= 0 for r in rows)
+            assert rows[-1]["end"] == pytest.approx(run["seconds"], abs=1e-6)  # the loop ends with the run
+            if t.soa is not None:  # fixed soa: every trial starts soa after the one before
+                assert all(b - a == pytest.approx(t.soa) for a, b in zip(onsets, onsets[1:]))
+            declared = dict(zip(study.names, study.facts.counts[run["run"] - 1].tolist()))
+            seen = {name: 0 for name in study.names}
+            for r in rows:
+                seen[r["condition"]] += 1
+                levels = study.spec.conditions[study.names.index(r["condition"])].levels
+                assert {f: r[f] for f in factors} == {f: levels.get(f, "") for f in factors}
+            assert seen == declared
+
+
+def test_trial_tables_agree_with_the_events_files(made):
+    """The same trials as the BIDS events file of the run, baseline aside."""
+    study, out = made
+    base = study.names[study.facts.baseline] if study.facts.baseline is not None else None
+    for events in sorted(out.rglob("*_events.tsv")):
+        label, run = events.name.split("_")[0][4:], events.name.split("_run-")[1].split("_")[0]
+        with events.open(newline="") as fh:
+            expected = [(r["onset"], r["duration"], r["trial_type"]) for r in csv.DictReader(fh, delimiter="\t")]
+        with (out / "stimulus" / f"sub-{label}_run-{run}_trials.csv").open(newline="") as fh:
+            rows = [(r["onset"], r["duration"], r["condition"]) for r in csv.DictReader(fh) if r["condition"] != base]
+        assert rows == expected

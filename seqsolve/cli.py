@@ -187,6 +187,14 @@ def generate(
     ] = 1,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
+    onset_files: Annotated[
+        bool,
+        typer.Option(
+            "--onset-files",
+            help="Also write onsets/: per run, onset/duration/weight text files per condition and a "
+            "multiple-conditions .mat, for analysis packages that do not read BIDS events.",
+        ),
+    ] = False,
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
@@ -236,6 +244,7 @@ def generate(
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
+            onset_files=onset_files,
         )
         display.end_line()
         _report_designs(designs, study, out, started)

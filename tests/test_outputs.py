@@ -8,7 +8,9 @@ import fnmatch
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
+import scipy.io
 
 from seqsolve.generate import generate
 from seqsolve.search import SearchOptions
@@ -24,10 +26,11 @@ EXAMPLES = {
 
 @pytest.fixture(scope="module", params=sorted(EXAMPLES))
 def made(request, tmp_path_factory):
-    """(study, output folder) of a generate without search (iterations 0: quick, same files)."""
+    """(study, output folder) of a generate without search (iterations 0: quick, same files), with
+    the onset files."""
     study = load_study(EXAMPLES[request.param])
     out = tmp_path_factory.mktemp(request.param) / "designs"
-    generate(study, out, search=SearchOptions(iterations=0))
+    generate(study, out, search=SearchOptions(iterations=0), onset_files=True)
     return study, out
 
 
@@ -176,3 +179,75 @@ def test_trial_tables_agree_with_the_events_files(made):
         with (out / "stimulus" / f"sub-{label}_run-{run}_trials.csv").open(newline="") as fh:
             rows = [(r["onset"], r["duration"], r["condition"]) for r in csv.DictReader(fh) if r["condition"] != base]
         assert rows == expected
+
+
+# ---------------------------------------------------------------------------------------------
+# 3. onset files for analysis packages
+
+
+def _events_by_condition(path: Path) -> dict[str, np.ndarray]:
+    """{trial_type: array (n, 2) of onset, duration} from a BIDS events file, in file order."""
+    with path.open(newline="") as fh:
+        rows = list(csv.DictReader(fh, delimiter="\t"))
+    out: dict[str, list] = {}
+    for r in rows:
+        out.setdefault(r["trial_type"], []).append((float(r["onset"]), float(r["duration"])))
+    return {k: np.array(v) for k, v in out.items()}
+
+
+def test_three_column_files_hold_the_events_of_each_condition(made):
+    """Three columns onset, duration, weight, tab-separated, one file per condition and run (the custom
+    three-column format common in fMRI analysis packages; from memory), read back by numpy."""
+    study, out = made
+    for events in sorted(out.rglob("*_events.tsv")):
+        stem = "onsets/" + events.name.replace(f"_task-{study.spec.study.task}", "").replace("_events.tsv", "")
+        expected = _events_by_condition(events)
+        written = sorted(p.name for p in out.glob(stem + "_*.txt"))
+        assert written == sorted(f"{Path(stem).name}_{c}.txt" for c in expected)
+        for condition, trials in expected.items():
+            path = out / f"{stem}_{condition}.txt"
+            assert all(len(line.split("\t")) == 3 for line in path.read_text().splitlines())
+            table = np.loadtxt(path, delimiter="\t", ndmin=2)
+            np.testing.assert_allclose(table[:, :2], trials, atol=1e-6)
+            assert (table[:, 2] == 1).all()
+
+
+def test_conditions_mat_holds_names_onsets_durations_as_cell_arrays(made):
+    """The .mat read back by scipy.io.loadmat: cell arrays names, onsets, durations (1 x K), in the
+    spec's order of conditions, each cell the events file's onsets and durations."""
+    study, out = made
+    for events in sorted(out.rglob("*_events.tsv")):
+        stem = "onsets/" + events.name.replace(f"_task-{study.spec.study.task}", "").replace("_events.tsv", "")
+        expected = _events_by_condition(events)
+        mat = scipy.io.loadmat(out / f"{stem}_conditions.mat")
+        for key in ("names", "onsets", "durations"):
+            assert mat[key].dtype == object and mat[key].shape == (1, len(expected)), key  # a cell array
+        names = [str(mat["names"][0, i][0]) for i in range(len(expected))]
+        assert names == [n for n in study.names if n in expected]
+        for i, name in enumerate(names):
+            np.testing.assert_allclose(mat["onsets"][0, i].ravel(), expected[name][:, 0], atol=1e-6)
+            np.testing.assert_allclose(mat["durations"][0, i].ravel(), expected[name][:, 1], atol=1e-6)
+
+
+def test_onset_files_are_optional_and_byte_identical_on_a_rerun(made, tmp_path):
+    study, out = made
+    again, without = tmp_path / "again", tmp_path / "without"
+    generate(study, again, search=SearchOptions(iterations=0), onset_files=True)
+    generate(study, without, search=SearchOptions(iterations=0))
+    assert _files(again) == _files(out)
+    for rel in _files(out):
+        assert (again / rel).read_bytes() == (out / rel).read_bytes(), rel  # the .mat header too
+    assert _files(without) == [f for f in _files(out) if not f.startswith("onsets/")]
+
+
+def test_generate_command_writes_onset_files_on_request(tmp_path):
+    from typer.testing import CliRunner
+
+    from seqsolve.cli import app
+
+    out = tmp_path / "designs"
+    spec = EXAMPLES["word_reading"]
+    result = CliRunner().invoke(app, ["generate", str(spec), "-o", str(out), "--iterations", "0", "--onset-files"])
+    assert result.exit_code == 0, result.output
+    assert (out / "onsets" / "sub-p01_run-2_conditions.mat").is_file()
+    assert len(list(out.glob("onsets/sub-p04_run-1_*.txt"))) == 4  # the four word conditions; rest is baseline

@@ -341,7 +341,10 @@ def audit(
             )
         )
     else:
-        typer.echo(f"checked {len(report.participants)} participant(s) against {len(report.rules)} rule(s)")
+        typer.echo(
+            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
+            "its trial counts and its timing"
+        )
         for v in report.violations:
             typer.echo(f"  {v.describe()}")
         typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")

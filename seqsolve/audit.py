@@ -7,11 +7,15 @@ from pathlib import Path
 
 import numpy as np
 
-from seqsolve.io.tables import read_orderings
+from seqsolve.io.tables import read_designs
 from seqsolve.rules import Violation
 from seqsolve.spec import Study
+from seqsolve.timing import trial_durations
 
 COUNT_RULE = "each run holds the declared number of trials of each condition"
+TIMING_RULE = "the onsets follow the spec's [timing]"
+#: onsets within a millisecond of the spec's timing count as on time (files keep microseconds)
+TIMING_TOLERANCE = 1e-3
 
 
 @dataclass
@@ -59,12 +63,60 @@ def audit_orderings(study: Study, designs: dict[str, list[np.ndarray]]) -> Audit
     return AuditReport(list(designs), [COUNT_RULE] + [r.name(study.facts) for r in study.rules], violations)
 
 
+def timing_violations(study: Study, codes: np.ndarray, onsets: np.ndarray, run: int) -> list[Violation]:
+    """Where a run's onsets (seconds, shape (n_trials,)) break the spec's [timing]: a trial that starts
+    before the previous one ends, an onset off the fixed soa's grid (lead_in + (position - 1) x soa),
+    and a run that does not end when the declared volumes do (last trial's end + lead_out)."""
+    t = study.spec.timing
+    if not len(codes):
+        return []
+    ends = onsets + trial_durations(study)[codes]
+    out = []
+    early = np.flatnonzero(onsets[1:] < ends[:-1] - TIMING_TOLERANCE)
+    if len(early):
+        p = int(early[0]) + 1
+        found = f"starts at {onsets[p]:g} s, before the previous trial ends at {ends[p - 1]:g} s"
+        out.append(Violation(TIMING_RULE, run, (p,), found))
+    if t.soa is not None:
+        expected = t.lead_in + t.soa * np.arange(len(codes))
+        off = np.flatnonzero(np.abs(onsets - expected) > TIMING_TOLERANCE)
+        if len(off):
+            p = int(off[0])
+            found = (
+                f"onset {onsets[p]:g} s; the spec's timing puts this position at {expected[p]:g} s "
+                f"(lead_in {t.lead_in:g} s + (position - 1) x soa {t.soa:g} s)"
+                + (f", and {len(off) - 1} later position(s) are off too" if len(off) > 1 else "")
+            )
+            out.append(Violation(TIMING_RULE, run, (p,), found))
+    if t.volumes is not None:
+        end, declared = float(ends[-1]) + t.lead_out, t.volumes * t.tr
+        if abs(end - declared) > TIMING_TOLERANCE:
+            found = (
+                f"the run ends at {end:g} s (last trial's end + lead_out {t.lead_out:g} s); the spec declares "
+                f"{t.volumes} volumes of TR {t.tr:g} s = {declared:g} s"
+            )
+            out.append(Violation(TIMING_RULE, run, (len(codes) - 1,), found))
+    return out
+
+
 def audit(study: Study, paths: list[str | Path]) -> AuditReport:
-    """Read ordering files (orderings.csv or BIDS events.tsv) and check them against the spec.
+    """Read ordering files (orderings.csv or BIDS events.tsv) and check them against the spec: every
+    rule, and the onsets against [timing] where the files give them.
 
     Raises
     ------
     OrderingFileError
         When a file cannot be read against the spec.
     """
-    return audit_orderings(study, read_orderings(study, paths))
+    designs = read_designs(study, paths)
+    report = audit_orderings(study, {label: [codes for codes, _ in runs] for label, runs in designs.items()})
+    timed = [
+        replace(v, participant=label)
+        for label, runs in designs.items()
+        for r, (codes, onsets) in enumerate(runs)
+        if onsets is not None
+        for v in timing_violations(study, codes, onsets, r)
+    ]
+    report.rules.append(TIMING_RULE)
+    report.violations.extend(timed)
+    return report

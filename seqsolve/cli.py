@@ -189,6 +189,14 @@ def generate(
     ] = 1,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
+    onset_files: Annotated[
+        bool,
+        typer.Option(
+            "--onset-files",
+            help="Also write onsets/: per run, onset/duration/weight text files per condition and a "
+            "multiple-conditions .mat, for analysis packages that do not read BIDS events.",
+        ),
+    ] = False,
 ) -> None:
     """Search valid, efficient orderings and schedules for every participant.
 
@@ -239,6 +247,7 @@ def generate(
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
+            onset_files=onset_files,
         )
         display.end_line()
         _report_designs(designs, study, out, started)
@@ -335,7 +344,10 @@ def audit(
             )
         )
     else:
-        typer.echo(f"checked {len(report.participants)} participant(s) against {len(report.rules)} rule(s)")
+        typer.echo(
+            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
+            "its trial counts and its timing"
+        )
         for v in report.violations:
             typer.echo(f"  {v.describe()}")
         typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")

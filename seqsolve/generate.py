@@ -16,6 +16,9 @@ from seqsolve.audit import audit_orderings
 from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
+from seqsolve.io.bids import bids_files
+from seqsolve.io.onsets import run_onset_files
+from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
@@ -312,11 +315,18 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
     return out
 
 
-def output_files(study: Study, designs: list[Design], front: list | None = None) -> dict[str, str]:
-    files = {}
+def output_files(
+    study: Study, designs: list[Design], front: list | None = None, onset_files: bool = False
+) -> dict[str, str | bytes]:
+    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files);
+    onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
+    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"])
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
             files[events_filename(study, d.label, r)] = events_tsv(study, s)
+            files[trials_filename(d.label, r)] = trials_csv(study, s)
+            if onset_files:
+                files.update(run_onset_files(study, d.label, r, s))
     files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs})
     if front:
         from seqsolve.tradeoff import front_tsv
@@ -336,11 +346,13 @@ def generate(
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
     front: int = 0,
+    onset_files: bool = False,
 ) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
 
     front: also search the detection/estimation trade-off at this many weightings (first
-    participant's timing) and write front.tsv.
+    participant's timing) and write front.tsv. onset_files: also write onsets/ (per run, a
+    three-column text file per condition and a multiple-conditions .mat).
 
     Raises
     ------
@@ -359,5 +371,5 @@ def generate(
             points = trade_off_front(study, front, search or SearchOptions(solve=options or SolveOptions()), 0, on_step)
         except KeyboardInterrupt:
             designs.notes.append("front interrupted: front.tsv not written")
-    write_folder(outdir, output_files(study, designs, points), force=force)
+    write_folder(outdir, output_files(study, designs, points, onset_files), force=force)
     return designs

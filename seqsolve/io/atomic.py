@@ -109,8 +109,8 @@ def remove_stale_partials(outdir: str | Path) -> list[Path]:
     return removed
 
 
-def write_folder(outdir: str | Path, files: dict[str, str], force: bool = False) -> Path:
-    """Write {relative path: text} as a fresh folder, swapped in by rename once complete.
+def write_folder(outdir: str | Path, files: dict[str, str | bytes], force: bool = False) -> Path:
+    """Write {relative path: text (UTF-8) or bytes} as a fresh folder, swapped in by rename once complete.
 
     Raises
     ------
@@ -131,7 +131,10 @@ def write_folder(outdir: str | Path, files: dict[str, str], force: bool = False)
         for rel, text in files.items():
             target = staging / rel
             target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_text(text, encoding="utf-8", newline="")
+            if isinstance(text, bytes):
+                target.write_bytes(text)
+            else:
+                target.write_text(text, encoding="utf-8", newline="")
         _swap_in(staging, outdir)
     except OSError as exc:
         shutil.rmtree(staging, ignore_errors=True)

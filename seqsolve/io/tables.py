@@ -40,14 +40,19 @@ def events_tsv(study: Study, sched: RunSchedule) -> str:
 
 
 def orderings_csv(study: Study, designs: dict[str, list[RunSchedule]]) -> str:
-    """Every trial of every participant, baseline included: the table a stimulus script loops over."""
+    """Every trial of every participant, baseline included, in one table.
+
+    The last column, participant_id ('sub-01'), keeps the label text for readers that turn '01' in
+    the participant column into the number 1 (pandas, R, spreadsheets); it is last so that the
+    columns before it stay where earlier versions put them.
+    """
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(ORDERING_COLUMNS)
+    w.writerow((*ORDERING_COLUMNS, "participant_id"))
     for label, scheds in designs.items():
         for r, s in enumerate(scheds, start=1):
             for p, (c, on, du) in enumerate(zip(s.codes, s.onsets, s.durations), start=1):
-                w.writerow([label, r, p, study.names[c], _num(on), _num(du)])
+                w.writerow([label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}"])
     return buf.getvalue()
 
 
@@ -377,7 +382,7 @@ def _read_csv(study: Study, path: Path, file: int, trials: _Trials) -> None:
         if run is None or pos is None:
             problems.append(_bad_run_position(row, cols, n_runs, max_pos, where))
             continue
-        label = _name(_field(row, cols, "participant"))
+        label = _label(row, cols)
         if not label or len(label) > MAX_NAME_CHARS:
             problems.append(Problem(where, f"participant must be a short label; got {shorten(label)}"))
             continue
@@ -393,6 +398,13 @@ def _read_csv(study: Study, path: Path, file: int, trials: _Trials) -> None:
             trials.add(label, run, pos, code, onset, file, line)
     if problems:
         raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
+
+
+def _label(row: list[str], cols: dict[str, int]) -> str:
+    """The participant's label: from participant_id ('sub-01') when given, since a table saved again
+    by pandas or a spreadsheet may have turned the participant column's '01' into '1'."""
+    given = _name(_field(row, cols, "participant_id"))
+    return given[4:] if given.startswith("sub-") else _name(_field(row, cols, "participant"))
 
 
 def _bad_run_position(row: list[str], cols: dict[str, int], n_runs: int, max_pos: int, where: str) -> Problem:

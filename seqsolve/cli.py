@@ -273,7 +273,11 @@ def _report_designs(designs, study, out: Path, started: float) -> None:
         f"({designs[0].method} model); every ordering passed all {len(study.rules)} rule checks"
     )
     extra = f", {out}/front.tsv" if (out / "front.tsv").exists() else ""
-    typer.echo(f"  {out}/orderings.csv, {out}/manifest.json, {out}/sub-*/...events.tsv{extra}")
+    extra += f", {out}/onsets/" if (out / "onsets").exists() else ""
+    typer.echo(
+        f"  a BIDS dataset skeleton: {out}/dataset_description.json, {out}/sub-*/...events.tsv; "
+        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}"
+    )
 
 
 def _table(head: list[str], rows: list[list[str]]) -> str:

@@ -109,9 +109,10 @@ def main() -> int:
                 fir_part or NO_FIR_TRACK,
                 1.0,
                 1.0 if fir_part else 0.0,
-                200,
-                24,
-                4,
+                200,  # moves
+                96,  # swaps drawn per move (the search's default)
+                0,  # of them between trials with the same neighbours
+                8,  # estimation scored exactly for the 8 most promising
                 late,
                 0,
                 -1.0,

@@ -22,6 +22,7 @@ from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.objective import Figures, References, Scorer, Weights
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
+from seqsolve.seeds import reference_seed
 from seqsolve.solve import (
     ParticipantOrdering,
     SolveOptions,
@@ -122,7 +123,7 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
     seconds: dict[int, float] = {}
     try:
         # one yardstick for every participant: the first participant's seed
-        out.references = References.for_study(study, setup, jobs[0].seed)
+        out.references = References.for_study(study, setup, reference_seed(study.spec.study.seed))
         if search.workers > 1 and n > 1:
             ended = []
 

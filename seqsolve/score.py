@@ -11,6 +11,7 @@ from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.limits import estimation_bound_identity
 from seqsolve.efficiency.metrics import conditional_entropy, counterbalance_deviation, max_correlation
 from seqsolve.efficiency.setup import AnalysisSetup, make_setup
+from seqsolve.seeds import reference_seed
 from seqsolve.spec import Study
 from seqsolve.timing import RunSchedule, make_schedules, schedule_from_onsets, trial_durations
 
@@ -28,7 +29,8 @@ class ScoreRow:
     are in 1/variance units of the response estimate, per unit innovation variance.
     references: the values the shares divide by: block_detection (best block design's detection)
     and block_size (its block, in trials), random_estimation (mean over random_orderings shuffled
-    orderings drawn with numpy's default_rng(0)), estimation_bound (None where none holds).
+    orderings drawn with numpy's default_rng seeded by seeds.reference_seed: the study's first
+    participant's seed, as in generate), estimation_bound (None where none holds).
     """
 
     participant: str
@@ -152,7 +154,7 @@ def score_design(
         bound = _estimation_bound(study, setup, idx, sum(s.n_volumes for s in sub))
         row.estimation_vs_bound = est / bound if bound else None
         if with_references:
-            ref = references(study, setup, idx)
+            ref = references(study, setup, idx, reference_seed(study.spec.study.seed))
             row.detection_vs_block = det / ref["block_detection"] if ref["block_detection"] > 0 else None
             row.estimation_vs_random = est / ref["random_estimation"] if ref["random_estimation"] > 0 else None
             row.references = {**ref, "random_orderings": N_RANDOM, "estimation_bound": bound}

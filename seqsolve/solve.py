@@ -20,6 +20,7 @@ from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
 from seqsolve.rules.participants_differ import ParticipantsDiffer
+from seqsolve.seeds import derive_seed  # noqa: F401  (part of this module's API)
 from seqsolve.spec import Study
 
 #: how often the flow path resamples a participant whose runs repeat an earlier participant's
@@ -66,11 +67,6 @@ class Explanation:
             else f"these rules cannot all hold together (smallest set found; {self.note}):"
         )
         return "\n".join([head] + [f"  - {src}: {sentence}" for _, src, sentence in self.rules])
-
-
-def derive_seed(master: int, index: int) -> int:
-    """A participant's seed from the master seed and its position in the list (fits CP-SAT's int32)."""
-    return int(np.random.SeedSequence([master, index]).generate_state(1)[0] % (2**31 - 1))
 
 
 def counts_expressible(study: Study) -> list[bool]:

@@ -96,7 +96,7 @@ trials = {gain}
 levels = {{ valence = "positive" }}
 [[conditions]]
 name = "bonus"
-trials = 15
+trials = {bonus}
 levels = {{ valence = "positive" }}
 [[conditions]]
 name = "loss"
@@ -122,7 +122,7 @@ def test_a_factor_level_too_common_to_break_up_is_named_by_counting(tmp_path):
     # pigeonhole: 35 positive trials (20 gain + 15 bonus), at most 2 in a row, fall in at least 18
     # stretches, which need 17 separating trials; the run has 50 - 35 = 15. Each condition alone
     # (20 or 15 of 50) would fit, so only counting the level's codes together finds this
-    result = check(tmp_path, OUTCOMES.format(gain=20, loss=15))
+    result = check(tmp_path, OUTCOMES.format(gain=20, bonus=15, loss=15))
     assert result.exit_code == 1, result.output
     assert "'valence=positive' has 35 of 50 trials in run 1" in result.output
     assert "ceil(35 / 2) - 1 = 17 other trials to break them up, but the run has 50 - 35 = 15" in result.output
@@ -131,8 +131,9 @@ def test_a_factor_level_too_common_to_break_up_is_named_by_counting(tmp_path):
 
 
 def test_a_factor_level_exactly_at_the_bound_is_not_claimed_impossible(tmp_path):
-    # n = L (N - n + 1): 34 = 2 x (50 - 34 + 1); 17 stretches of 2 with the 16 losses between them
-    text = OUTCOMES.format(gain=19, loss=16)
+    # n = L (N - n + 1): 12 = 2 x (17 - 12 + 1); 6 stretches of 2 with the 5 losses between them (the
+    # only shape there is, so the solver meets the bound head-on)
+    text = OUTCOMES.format(gain=7, bonus=5, loss=5)
     result = check(tmp_path, text)
     assert result.exit_code == 0, result.output
     spec = tmp_path / "edge.toml"
@@ -142,7 +143,7 @@ def test_a_factor_level_exactly_at_the_bound_is_not_claimed_impossible(tmp_path)
     (run,) = generate_orderings(study)[0].runs
     positive = np.isin(run, [study.facts.code("gain"), study.facts.code("bonus")])
     longest = max(len(s) for s in "".join("p" if x else "." for x in positive).split("."))
-    assert longest == 2 and positive.sum() == 34
+    assert longest == 2 and positive.sum() == 12
 
 
 def test_max_run_counting_agrees_with_the_solver_on_small_runs():

@@ -4,10 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
+from ortools.sat.python import cp_model
 from typer.testing import CliRunner
 
 from seqsolve.cli import app
 from seqsolve.counting import counting_conflict
+from seqsolve.model import OrderingModel
 from seqsolve.rules import BalancedTransitions, ForbiddenTransition, MaxRun, MinGap
 from seqsolve.solve import SolveOptions, generate_orderings
 from seqsolve.spec import load_study
@@ -262,3 +266,41 @@ def test_across_runs_the_sentence_sums_the_runs():
     study = make_study([4, 4, 4], [BALANCED.model_copy(update={"across_runs": True}), FORBID_AB], runs=2)
     sentence = counting_conflict(study).rules[0][2]
     assert "runs 1 to 2 together need 'a' then 'b' at least floor(2.44) - 1 = 1 time(s)" in sentence
+
+
+RULE_CHOICES = [
+    MaxRun(kind="max-run", length=1, conditions=["a"]),
+    MaxRun(kind="max-run", length=2),
+    MaxRun(kind="max-run", length=2, conditions=["f=x"]),
+    BALANCED,
+    BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True),
+    BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True),
+    FORBID_AB,
+    ForbiddenTransition(kind="forbidden-transition", first="f=x", then="c"),
+    MinGap(kind="min-gap", conditions=["b"], gap=1),
+]
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(st.integers(1, 6), min_size=3, max_size=3),
+    st.integers(1, 2),
+    st.lists(st.sampled_from(RULE_CHOICES), min_size=1, max_size=3, unique_by=id),
+)
+def test_counting_claims_only_what_the_solver_proves(counts, runs, rules):
+    # soundness: whenever counting names a conflict, the full per-position model (which counting
+    # never sees) is infeasible too
+    study = make_study(counts, rules, runs=runs, grouped=True)
+    claimed = counting_conflict(study) is not None
+    event(f"counting claims a conflict: {claimed}")
+    if not claimed:
+        return
+    m = OrderingModel(study.facts)
+    for rule in study.rules:
+        g = m.new_guard("r")
+        m.cp.add(g == 1)
+        rule.encode(m, g)
+    solver = cp_model.CpSolver()
+    solver.parameters.num_workers = 1
+    solver.parameters.max_time_in_seconds = 20
+    assert solver.solve(m.cp) == cp_model.INFEASIBLE

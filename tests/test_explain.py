@@ -44,7 +44,11 @@ def test_explanation_names_exactly_the_conflicting_rules(counts, rules, conflict
 
 
 def test_no_time_means_no_claim():
-    study = make_study([6, 4], [MAX1])
+    # a conflict counting does not see (balance's upper bounds against max-run 1) needs the solver
+    study = make_study([3, 3, 3], [BALANCED0, MAX1])
     exp = explain(study, SolveOptions(explain_time_limit=0))
     assert not exp.proven
     assert "could not decide" in exp.describe()
+    # 6 a's among 10 trials, never two in a row: counting proves it without any solver time
+    exp = explain(make_study([6, 4], [MAX1]), SolveOptions(explain_time_limit=0))
+    assert exp.proven and exp.minimal and "ceil(6 / 1) - 1 = 5 other trials" in exp.describe()

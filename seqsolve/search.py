@@ -80,6 +80,8 @@ class SearchOptions:
     # no better on the tight benchmark scenario: 0.716 vs 0.720 at 10 s)
     screen: int = 8  # compiled moves: estimation scored exactly for this many, the best by its gradient (0: all)
     batch_numpy: int = 24  # swaps drawn per move where they are scored through the Evaluator (slower)
+    moves_moving: int = 8  # moves per round when onsets move with the labels (each candidate its own timing)
+    exact_moving: int = 4  # and the candidates per move scored exactly there (the rest ranked on the current timing)
     history: int | None = None  # late acceptance: a move may score below the current design, not below the
     # design of this many moves ago; None: the expected number of moves / HISTORY_SHARE (set after one round
     # when the search runs to a wall-clock budget)
@@ -374,7 +376,7 @@ class Search:
         if self.compiled:
             self._compiled_moves(self.options.moves * COMPILED_MOVES)
         else:
-            for _ in range(self.options.moves):
+            for _ in range(self._moves_per_round()):
                 self._move()
         self._settle()
         if self.jitter and self._gap_step():
@@ -385,7 +387,9 @@ class Search:
         return kind
 
     def _moves_per_round(self) -> int:
-        return self.options.moves * (COMPILED_MOVES if self.compiled else 1)
+        if self.compiled:
+            return self.options.moves * COMPILED_MOVES
+        return self.options.moves if self.scorer.fixed else self.options.moves_moving
 
     def _size_history(self, expected_moves: float | None) -> None:
         """The late-acceptance list: the option's length, or a share of the moves expected."""
@@ -527,7 +531,7 @@ class Search:
         """Exact weighted scores after each swap of the current design."""
         sc = self.scorer
         if not sc.fixed or sc.weights.counterbalance:
-            return sc.swap_gains(self.current, pairs)
+            return sc.swap_gains(self.current, pairs, exact=self.options.exact_moving if not sc.fixed else 16)
         codes = self.checker.codes
         ev = sc.evaluator(self.current)
         det = est = np.zeros(len(pairs))

@@ -564,10 +564,10 @@ class Search:
     def sample_starts(
         study: Study, seed: int, earlier: list[list[np.ndarray]], options: SearchOptions
     ) -> list[list[np.ndarray]]:
-        """Diverse valid starting designs: samples from CP-SAT (two only when the per-position model
+        """Diverse valid starting designs: samples from CP-SAT (one only when the per-position model
         is needed), and plain shuffles that happen to pass every rule (common under loose rules;
         CP-SAT's samples lean toward extreme transition counts, shuffles do not)."""
-        n = options.pool if choose_method(study, options.solve) == "counts" else 2
+        n = options.pool if choose_method(study, options.solve) == "counts" else 1
         found = sample_orderings(study, seed, n, earlier, options.solve)
         judge = Judge(study, earlier)
         rng = np.random.default_rng([seed, 23])

@@ -95,7 +95,7 @@ def main() -> int:
     ev = scorer.evaluator(runs)
     track = detection_track(ev, scorer.setup, codes)
     fir = fir_track(ev, scorer.setup, codes)
-    kernels = checker._k
+    kernels = checker.kernels
     late = np.full(50, -1.0)
     ends = starts[1:].astype(np.int64)
 

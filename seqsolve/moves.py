@@ -249,7 +249,7 @@ class MoveChecker:
     def __init__(self, rules: MoveRules, earlier: list[list[np.ndarray]], codes: np.ndarray):
         from seqsolve import move_kernels  # numba: compiled on first use, cached per machine
 
-        self._k = move_kernels
+        self.kernels = move_kernels  # the search calls its compiled loop with these tables and state
         self.tables = rules.tables(earlier)
         self.state = start_state(self.tables, codes)
 
@@ -265,11 +265,11 @@ class MoveChecker:
         """For each pair (i, j) of trials (global indices), would swapping them keep every rule?
         Pairs in different runs or with equal labels are never valid moves. Returns bool (n,)."""
         pairs = np.ascontiguousarray(pairs, dtype=np.int64).reshape(-1, 2)
-        return self._k.swaps_valid(self.tables, self.state, pairs)
+        return self.kernels.swaps_valid(self.tables, self.state, pairs)
 
     def apply(self, i: int, j: int) -> None:
         """Make the swap (judged valid before) and update every counter."""
-        self._k.apply_swap(self.tables, self.state, int(i), int(j))
+        self.kernels.apply_swap(self.tables, self.state, int(i), int(j))
 
 
 def compile_moves(study_rules, facts: StudyFacts) -> MoveRules:

@@ -158,7 +158,13 @@ class Scorer:
         labels, building the design matrices directly is cheaper than an Evaluator."""
         if self.fixed:
             return self.evaluator(runs).score(np.concatenate(runs))
-        schedules = make_schedules(self.study, runs, self.seed, self.gaps)
+        return self._direct(runs, self.gaps, detection, estimation)
+
+    def _direct(
+        self, runs: list[np.ndarray], gaps: list[np.ndarray] | None, detection: bool, estimation: bool
+    ) -> tuple[float, float]:
+        """Both efficiencies of one design on the schedule these gaps give, matrices built directly."""
+        schedules = make_schedules(self.study, runs, self.seed, gaps)
         layout = make_layout(
             self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
         )
@@ -170,11 +176,7 @@ class Scorer:
     def score_on_gaps(self, runs: list[np.ndarray], gaps: list[np.ndarray]) -> float:
         """Exact weighted score of one design on other gaps, its matrices built directly (cheaper
         for one design than a new Evaluator; `with_gaps` makes the scorer for many)."""
-        schedules = make_schedules(self.study, runs, self.seed, gaps)
-        layout = make_layout(
-            self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
-        )
-        det, est = self.direct.score(layout, np.concatenate(runs), self.use_det, self.use_est)
+        det, est = self._direct(runs, gaps, self.use_det, self.use_est)
         cb = self.counterbalance(runs) if self.weights.counterbalance else 0.0
         return float(self.combine(np.array([det]), np.array([est]), cb)[0])
 

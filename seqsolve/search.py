@@ -154,7 +154,7 @@ def warm_up(study: Study) -> None:
     codes = np.concatenate([np.repeat(np.arange(study.facts.n_conditions), c) for c in study.facts.counts])
     checker = MoveChecker(compile_moves(study.rules, study.facts), [], codes)
     checker.valid(np.zeros((1, 2), dtype=np.int64))
-    checker._k.tracked_moves(
+    checker.kernels.tracked_moves(
         checker.tables,
         checker.state,
         NO_TRACK,
@@ -325,7 +325,6 @@ class Search:
         first = int(order[0])
         self.unused = [starts[i] for i in order[1:]]
         self.checker = MoveChecker(self.moves, self.earlier, np.concatenate(starts[first]))
-        self._kernels = self.checker._k
         self._move_to(starts[first], float(scores[first]))
         budget = self.options.budget
         self._size_history(self.iterations * self._moves_per_round() if budget is None else None)
@@ -424,9 +423,9 @@ class Search:
         score = float(scores[k])
         if score >= self.current_score - TOL or score >= self.late[slot]:
             if self.track is not None:
-                self._kernels.detection_apply(self.track, self.checker.codes, *pairs[k])
+                self.checker.kernels.detection_apply(self.track, self.checker.codes, *pairs[k])
             if self.fir is not None:
-                self._kernels.estimation_apply(self.fir, self.checker.codes, *pairs[k])
+                self.checker.kernels.estimation_apply(self.fir, self.checker.codes, *pairs[k])
             self.checker.apply(*pairs[k])
             self.current_score = score
             if score > self.best_score + TOL:
@@ -441,7 +440,7 @@ class Search:
         wd = w.detection / max(r.block_detection, 1e-300) if self.track is not None else 0.0
         we = w.estimation / max(r.random_estimation, 1e-300) if self.fir is not None else 0.0
         seed = int(self.rng.integers(2**31 - 1))
-        cur, best, at, judged = self._kernels.tracked_moves(
+        cur, best, at, judged = self.checker.kernels.tracked_moves(
             self.checker.tables,
             self.checker.state,
             self.track or NO_TRACK,
@@ -540,16 +539,16 @@ class Search:
         """Exact weighted scores after each swap of the current design."""
         sc = self.scorer
         if not sc.fixed or sc.weights.counterbalance:
-            return sc.swap_gains(self.current, pairs, exact=self.options.exact_moving if not sc.fixed else 16)
+            return sc.swap_gains(self.current, pairs, exact=self.options.exact_moving)  # exact applies to moving onsets
         codes = self.checker.codes
         ev = sc.evaluator(self.current)
         det = est = np.zeros(len(pairs))
         if self.track is not None:
-            det = self._kernels.detection_swap_scores(self.track, codes, pairs)
+            det = self.checker.kernels.detection_swap_scores(self.track, codes, pairs)
         elif sc.use_det:
             det = ev.swap_scores(codes, pairs, True, False)[0]
         if self.fir is not None:
-            est = self._kernels.estimation_swap_scores(self.fir, codes, pairs)
+            est = self.checker.kernels.estimation_swap_scores(self.fir, codes, pairs)
         elif sc.use_est:
             if len(pairs) >= EST_SWAPS_BATCHED:
                 est = ev.swap_scores(codes, pairs, False, True)[1]

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+import signal
+
 import numpy as np
 import pytest
 from ortools.sat.python import cp_model
@@ -96,3 +99,15 @@ def random_ordering(facts: StudyFacts, rng) -> list[np.ndarray]:
 def tmp_cwd(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     return tmp_path
+
+
+def end_session(proc) -> None:
+    """Kill whatever is left of a command started with start_new_session=True, wait for it and close
+    its pipes, so that no process of a test outlives it."""
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except ProcessLookupError:
+        pass
+    proc.wait()
+    proc.stdout.close()
+    proc.stderr.close()

@@ -19,6 +19,7 @@ import seqsolve.generate  # noqa: F401 - loads the module patched below
 import seqsolve.io.atomic as atomic
 import seqsolve.solve  # noqa: F401 - loads the module patched below
 from seqsolve.cli import app
+from tests.conftest import end_session
 from tests.test_bad_input import BASE
 
 runner = CliRunner()
@@ -227,13 +228,7 @@ def test_sigterm_with_workers_writes_the_best_designs_and_exits_143(tmp_path):
             time.sleep(0.2)
         left = _session_processes(proc.pid)
     finally:
-        try:
-            os.killpg(proc.pid, signal.SIGKILL)
-        except ProcessLookupError:
-            pass
-        proc.wait()
-        proc.stdout.close()
-        proc.stderr.close()
+        end_session(proc)
     assert proc.returncode == 143, stdout
     assert not left, f"processes left running: {left}"
     manifest = json.loads((out / "manifest.json").read_text())

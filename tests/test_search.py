@@ -19,7 +19,7 @@ from seqsolve.objective import References, Scorer, Weights
 from seqsolve.search import Judge, Search, SearchOptions
 from seqsolve.solve import check_runs, derive_seed, sample_orderings
 from seqsolve.timing import draw_gaps, make_schedules
-from tests.conftest import make_study
+from tests.conftest import end_session, make_study
 
 RULE_CHOICES = [
     {"kind": "max-run", "length": 2},
@@ -318,13 +318,7 @@ def test_ctrl_c_on_the_command_line_writes_the_best_designs_so_far(tmp_path, wor
             proc.send_signal(signal.SIGINT)
         stdout, _ = proc.communicate(timeout=300)
     finally:
-        try:
-            os.killpg(proc.pid, signal.SIGKILL)
-        except ProcessLookupError:
-            pass
-        proc.wait()
-        proc.stdout.close()
-        proc.stderr.close()
+        end_session(proc)
     assert proc.returncode == 130, stdout  # the shell convention for a run cut short by SIGINT
     assert "interrupted" in stdout
     manifest = json.loads((out / "manifest.json").read_text())

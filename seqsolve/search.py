@@ -191,18 +191,11 @@ class WindowSolver:
         self.study, self.earlier, self.work, self.options = study, earlier, work, options
 
     def solve(
-        self,
-        runs: list[np.ndarray],
-        run: int,
-        positions: np.ndarray,
-        weights: np.ndarray | None,
-        seed: int,
-        listing: int = 0,
+        self, runs: list[np.ndarray], run: int, positions: np.ndarray, weights: np.ndarray, seed: int
     ) -> tuple[list[list[np.ndarray]], bool]:
         """Designs for the freed positions, improving on sum weights[i, c] * [position i holds c].
 
-        weights: integers, shape (len(positions), n_conditions); None: list valid completions
-        instead, up to `listing` of them (proved complete: the bool). Returns every solution CP-SAT met
+        weights: integers, shape (len(positions), n_conditions). Returns every solution CP-SAT met
         on its way (the last is the best for the linear objective; all are valid, and the caller
         re-scores them exactly) and whether the last was proved optimal. The current labels are a
         valid answer, given as a hint; an empty list when nothing was found within the work limit.
@@ -214,23 +207,17 @@ class WindowSolver:
         lits, coefs = [], []
         for i, p in enumerate(positions):
             for c in range(xs.shape[1]):
-                if weights is not None and weights[i, c]:
+                if weights[i, c]:
                     lits.append(xs[p, c])
                     coefs.append(int(weights[i, c]))
             for c in range(xs.shape[1]):
                 m.cp.add_hint(xs[p, c], bool(c == runs[run][p]))
-        if weights is None:  # every completion (up to `enumerate`), for exact scoring by the caller
-            seen = _Collector(xs[positions], limit=listing)
-        else:
-            if lits:
-                m.cp.maximize(cp_model.LinearExpr.weighted_sum(lits, coefs))
-            seen = _Collector(xs[positions])
+        if lits:
+            m.cp.maximize(cp_model.LinearExpr.weighted_sum(lits, coefs))
+        seen = _Collector(xs[positions])
         m.cp.clear_assumptions()
         m.cp.add_assumptions(guards)
-        solver = solver_params(seed, self.options, work=self.work)
-        if weights is None:
-            solver.parameters.enumerate_all_solutions = True
-        status = solver.solve(m.cp, seen)
+        status = solver_params(seed, self.options, work=self.work).solve(m.cp, seen)
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             return [], False
         out = []
@@ -244,16 +231,14 @@ class WindowSolver:
 class _Collector(cp_model.CpSolverSolutionCallback):
     """The freed positions' labels in every solution CP-SAT reports."""
 
-    def __init__(self, lits: np.ndarray, limit: int = 0):
+    def __init__(self, lits: np.ndarray):
         super().__init__()
-        self.lits, self.limit = lits, limit
+        self.lits = lits
         self.labels: list[np.ndarray] = []
 
     def on_solution_callback(self) -> None:
         vals = np.array([[self.boolean_value(v) for v in row] for row in self.lits], dtype=bool)
         self.labels.append(vals.argmax(axis=1).astype(np.int64))
-        if self.limit and len(self.labels) >= self.limit:
-            self.stop_search()
 
 
 class Search:

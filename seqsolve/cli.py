@@ -329,11 +329,17 @@ def _designs_table(designs, timed: bool = True) -> str:
 def audit(
     spec: SpecArg,
     files: Annotated[
-        list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)
+        list[Path],
+        typer.Argument(
+            help="orderings.csv and/or BIDS *_events.tsv files, a participants.tsv (counterbalancing), "
+            "or an output folder (its orderings.csv and participants.tsv).",
+            show_default=False,
+        ),
     ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
 ) -> None:
-    """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
+    """Check existing orderings against the spec's rules, and a study's counterbalanced assignment
+    against its [[counterbalance]] sections (exit 0 valid, 1 violations, 2 bad input).
 
     Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
     """
@@ -355,14 +361,24 @@ def audit(
             )
         )
     else:
-        typer.echo(
-            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
-            "its trial counts and its timing"
-        )
+        typer.echo(_audit_scope(study, report))
         for v in report.violations:
             typer.echo(f"  {v.describe()}")
         typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
     raise typer.Exit(0 if report.valid else 1)
+
+
+def _audit_scope(study, report) -> str:
+    """What audit checked: orderings (rules, counts, timing) and/or a counterbalanced assignment."""
+    from seqsolve.audit import TIMING_RULE
+
+    n = len(report.participants)
+    factors = sum(r.startswith("counterbalance[") for r in report.rules)
+    cb = f"its {factors} counterbalanced factor(s) ({', '.join(c.name for c in study.spec.counterbalance)})"
+    if TIMING_RULE not in report.rules:
+        return f"checked the assignment of {n} participant(s) against {cb}"
+    head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), its trial counts and its timing"
+    return head + (f", and their assignment against {cb}" if factors else "")
 
 
 @app.command()

@@ -17,6 +17,8 @@ from typing import TYPE_CHECKING, Annotated, Literal
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
+from seqsolve.errors import shorten
+
 if TYPE_CHECKING:  # spec.py imports this module
     from seqsolve.spec import Study
 
@@ -265,11 +267,12 @@ def assignment_problems(section: Counterbalance, orders: dict[str, tuple[str, ..
     """(participant or None, what is wrong) for an assignment of this section over participants.
 
     orders: per participant, its levels (one per run position of a block, or its one level). Checks
-    that each order is one the design allows (known levels; a row using each level once), that every
-    order used is taken equally often (within one participant with accept_imbalance), and, when the
-    counts are even, the design's property: each level at each position equally often (Latin,
-    Williams), each ordered pair of neighbouring levels equally often (Williams), every permutation
-    present (permutations), or each level equally often (between participants).
+    that each order is one the design allows (known levels; a row using each level once); that the
+    participant count is a multiple of the design's number of orders n_rows (else, with
+    accept_imbalance, that min(n, n_rows) distinct orders are taken, within one participant of each
+    other); that every order used is taken equally often; and then the design's property: each level
+    at each position equally often (Latin, Williams), each ordered pair of neighbouring levels equally
+    often (Williams), every permutation present (permutations), every level present (between).
     """
     n = len(section.levels)
     width = 1 if section.scope == "participants" else n
@@ -281,7 +284,7 @@ def assignment_problems(section: Counterbalance, orders: dict[str, tuple[str, ..
     if out or not orders:
         return out
     taken = Counter(orders.values())
-    shown = ", ".join(f"{ORDER_SEPARATOR.join(o)} x{c}" for o, c in sorted(taken.items()))
+    shown = _shown(taken)
     n_rows = len(design_rows(section))
     if len(orders) % n_rows:
         if not section.accept_imbalance:
@@ -292,7 +295,7 @@ def assignment_problems(section: Counterbalance, orders: dict[str, tuple[str, ..
                     f"{_design_name(section)} ({shown}); set accept_imbalance = true to accept it",
                 )
             ]
-        if max(taken.values()) - min(taken.values()) > 1:
+        if max(taken.values()) - min(taken.values()) > 1 or len(taken) < min(len(orders), n_rows):
             return [(None, f"orders differ by more than one participant: {shown}")]
         return []  # accepted imbalance: no property can hold exactly, and accept_imbalance says so
     if len(set(taken.values())) > 1:
@@ -302,10 +305,21 @@ def assignment_problems(section: Counterbalance, orders: dict[str, tuple[str, ..
     return [(None, m) for m in _property_problems(section, list(orders.values()))]
 
 
+#: orders listed in a message at most (a permutations design of 6 levels has 720)
+SHOWN_ORDERS = 8
+
+
+def _shown(taken: Counter) -> str:
+    """The orders taken and how often, for a message: the rarest first, at most SHOWN_ORDERS of them."""
+    items = sorted(taken.items(), key=lambda item: (item[1], item[0]))
+    text = ", ".join(f"{ORDER_SEPARATOR.join(o)} x{c}" for o, c in items[:SHOWN_ORDERS])
+    return text + (f", ... ({len(items)} orders)" if len(items) > SHOWN_ORDERS else "")
+
+
 def _order_problem(section: Counterbalance, order: tuple[str, ...], width: int) -> str | None:
     unknown = [x for x in order if x not in section.levels]
     if unknown:
-        return f"unknown level '{unknown[0]}' of '{section.name}'; its levels: {', '.join(section.levels)}"
+        return f"unknown level {shorten(unknown[0])} of '{section.name}'; its levels: {', '.join(section.levels)}"
     if len(order) != width:
         return f"{len(order)} level(s) given; '{section.name}' needs {width}"
     if len(set(order)) != len(order):

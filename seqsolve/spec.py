@@ -583,7 +583,8 @@ def _check_rule_values(rules: list[Rule], sources: list[str]) -> list[Problem]:
     return out
 
 
-#: column names of the output tables that a counterbalanced factor may not take
+#: column names a counterbalanced factor may not take: the output tables' own, and the events columns
+#: BIDS gives a meaning of its own (sample, response_time, value, HED, stim_file; BIDS 1.x, from memory)
 TAKEN_COLUMNS = {
     "participant",
     "participant_id",
@@ -594,6 +595,11 @@ TAKEN_COLUMNS = {
     "duration",
     "gap",
     "trial_type",
+    "sample",
+    "response_time",
+    "value",
+    "hed",
+    "stim_file",
 }
 
 

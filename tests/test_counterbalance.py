@@ -131,6 +131,13 @@ def test_uneven_counts_differ_by_at_most_one_when_accepted():
     assert "cannot be balanced" in assignment_problems(strict, orders)[0][1]
 
 
+def test_accepted_imbalance_still_needs_every_order():
+    """Five participants all on one order: within one of each other, trivially, yet three orders unused."""
+    section = _section(accept_imbalance=True)
+    orders = {str(p): ("a", "b", "d", "c") for p in range(5)}
+    assert "differ by more than one" in assignment_problems(section, orders)[0][1]
+
+
 # ---------------------------------------------------------------------------------------------
 # 3. a study: spec, outputs, audit
 

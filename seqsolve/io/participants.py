@@ -5,13 +5,15 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from seqsolve.counterbalance import ORDER_SEPARATOR
+from seqsolve.counterbalance import MOST_LEVELS, ORDER_SEPARATOR
 from seqsolve.errors import OrderingFileError, Problem, shorten
 from seqsolve.io import limits
 from seqsolve.io.tables import MAX_NAME_CHARS, MAX_PROBLEMS, _check_file, _header, _rows
 from seqsolve.spec import Study
 
 PARTICIPANTS_FILE = "participants.tsv"
+#: the longest value a counterbalanced column can hold: a run order of the most levels, each a name
+LONGEST_VALUE = MOST_LEVELS * (MAX_NAME_CHARS + 1)
 
 
 def is_participants_table(path: Path) -> bool:
@@ -60,7 +62,7 @@ def read_assignment(study: Study, path: str | Path) -> dict[str, dict[str, tuple
             break
         for n in names:
             value = row[cols[n]].strip() if cols[n] < len(row) else ""
-            if not value or len(value) > MAX_NAME_CHARS * 10:
+            if not value or len(value) > LONGEST_VALUE:
                 problems.append(
                     Problem(f"line {line}", f"column {n}: a level or a run order is needed; got {shorten(value)}")
                 )

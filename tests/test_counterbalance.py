@@ -220,6 +220,8 @@ def test_pybids_reads_the_extra_columns(folder):
     _, out = folder
     layout = bids.BIDSLayout(out, validate=True)
     assert len(layout.get(suffix="events", extension=".tsv")) == 8 * 4
+    validator = pytest.importorskip("bids_validator").BIDSValidator()
+    assert validator.is_bids("/participants.json") and validator.is_bids("/participants.tsv")
 
 
 def test_audit_accepts_the_folder_and_the_table(folder):

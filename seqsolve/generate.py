@@ -14,7 +14,8 @@ import numpy as np
 
 from seqsolve.audit import audit_orderings
 from seqsolve.counterbalance import assign_study, manifest_entry, run_values
-from seqsolve.errors import InternalError
+from seqsolve.efficiency.setup import NO_TR_MESSAGE
+from seqsolve.errors import InternalError, Problem, SpecError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.bids import bids_files
 from seqsolve.io.onsets import run_onset_files
@@ -406,6 +407,10 @@ def generate(
     InfeasibleError, SolverTimeoutError
         When no valid ordering can be produced.
     """
+    if front and study.spec.timing.tr is None:  # before any search: the front is made of fMRI figures
+        raise SpecError(
+            study.source, [Problem("timing.tr", f"--front trades detection against estimation; {NO_TR_MESSAGE}")]
+        )
     ensure_writable(outdir, force)
     designs = design_study(study, options, progress, search, on_step)
     points = None

@@ -8,27 +8,34 @@ import csv
 import itertools
 import json
 import math
+import random
 from collections import Counter
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from seqsolve import spec as spec_module
+from seqsolve.audit import assignment_violations
 from seqsolve.cli import app
 from seqsolve.counterbalance import (
     NAME_PATTERN,
     Counterbalance,
     assign,
+    assign_study,
     assignment_problems,
     design_rows,
     latin_rows,
+    sentence,
     williams_rows,
 )
-from seqsolve.errors import SpecError
+from seqsolve.errors import SeqsolveError, SpecError
 from seqsolve.generate import generate
 from seqsolve.search import SearchOptions
-from seqsolve.spec import study_from_mapping
+from seqsolve.spec import load_study, study_from_mapping
+from tests.fuzzing import mutate_spec, mutate_table
 
 runner = CliRunner()
 
@@ -364,8 +371,6 @@ def test_accept_imbalance_lets_uneven_counts_through_and_says_so():
     data = _spec(study__participants=6)
     data["counterbalance"][0]["accept_imbalance"] = True
     study = study_from_mapping(data)
-    from seqsolve.counterbalance import assign_study, sentence
-
     assert "each taken by 1 to 2 participant(s) (unequal: accept_imbalance = true)" in sentence(assign_study(study)[0])
 
 
@@ -378,3 +383,36 @@ def test_every_order_of_a_small_design_is_a_permutation_of_its_levels():
         for design in ("williams", "latin", "permutations"):
             rows = design_rows(_section(levels=[f"l{i}" for i in range(n)], design=design))
             assert set(rows) <= set(itertools.permutations(range(n)))
+
+
+# ---------------------------------------------------------------------------------------------
+# 5. fuzzing: whatever the section or the table, only our errors come out (tests/fuzzing.py's mutations)
+
+FUZZ = settings(max_examples=100, deadline=None, derandomize=True, suppress_health_check=list(HealthCheck))
+LEVEL_NAMES = ["sine", "square", "saw", "tri", "left", "right", "go"]
+
+
+@FUZZ
+@given(st.integers(0, 2**32 - 1))
+def test_a_mutated_counterbalanced_spec_loads_or_raises_our_error(seed):
+    data = mutate_spec(json.loads(json.dumps(BASE)), random.Random(seed), LEVEL_NAMES)
+    try:
+        study = study_from_mapping(data, source="fuzzed.toml")
+    except SeqsolveError:
+        return
+    for a in assign_study(study):  # what loads is usable, and its own assignment passes its audit
+        orders = {str(p): tuple(a.levels_of(p)[: len(a.rows[0])]) for p in range(len(study.participants))}
+        assert assignment_problems(a.section, orders) == []
+
+
+@FUZZ
+@given(st.integers(0, 2**32 - 1))
+def test_a_mutated_participants_table_reads_or_raises_our_error(folder, tmp_path_factory, seed):
+    spec, out = folder
+    study = load_study(spec)
+    path = tmp_path_factory.mktemp("table") / "participants.tsv"
+    path.write_bytes(mutate_table((out / "participants.tsv").read_text(), random.Random(seed), LEVEL_NAMES, "\t"))
+    try:
+        assignment_violations(study, path)
+    except SeqsolveError:
+        pass

@@ -374,10 +374,13 @@ def _audit_scope(study, report) -> str:
 
     n = len(report.participants)
     factors = sum(r.startswith("counterbalance[") for r in report.rules)
-    cb = f"its {factors} counterbalanced factor(s) ({', '.join(c.name for c in study.spec.counterbalance)})"
+    names = [c.name for c in study.spec.counterbalance]
+    cb = f"its {len(names)} counterbalanced factor(s) ({', '.join(names)})"
     if TIMING_RULE not in report.rules:
         return f"checked the assignment of {n} participant(s) against {cb}"
     head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), its trial counts and its timing"
+    if not factors and study.spec.counterbalance:
+        return head + f"; not {cb}: give the output folder or its participants.tsv for that"
     return head + (f", and their assignment against {cb}" if factors else "")
 
 

@@ -239,6 +239,13 @@ def test_audit_accepts_the_folder_and_the_table(folder):
         assert "counterbalanced factor(s) (sound, hand)" in result.output
 
 
+def test_audit_of_orderings_alone_says_the_assignment_was_not_checked(folder):
+    spec, out = folder
+    result = runner.invoke(app, ["audit", str(spec), str(out / "orderings.csv")])
+    assert result.exit_code == 0, result.output
+    assert "not its 2 counterbalanced factor(s) (sound, hand): give the output folder" in result.output
+
+
 def _mutated(out: Path, tmp_path: Path, change) -> Path:
     rows = _read_tsv(out / "participants.tsv")
     change(rows)

@@ -454,13 +454,15 @@ def score(
 
 def _echo_counterbalance(study) -> None:
     """The [[counterbalance]] sections as sentences, with the study's counts (assignment from its seed)."""
-    from seqsolve.counterbalance import assign_study, sentence
+    from seqsolve.counterbalance import assign_study, crossing, sentence
 
     found = assign_study(study)
     if found:
         typer.echo(f"across the {len(study.participants)} participant(s), from seed {study.spec.study.seed}:")
     for a in found:
         typer.echo(f"  - counterbalance[{a.index + 1}]: {sentence(a)}")
+    if crossing(found):
+        typer.echo(f"  - {crossing(found)}")
 
 
 def _check_scope(study) -> str:

@@ -157,19 +157,41 @@ class Assignment:
 
 
 def assign(sections: list[Counterbalance], n_participants: int, n_runs: int, seed: int) -> list[Assignment]:
-    """Every section's assignment: its rows shuffled by the study seed, participants taking them in turn.
+    """Every section's assignment: its rows shuffled by the study seed, participants taking them in turn,
+    the sections crossed as far as the participant count allows.
 
-    Participant p (from 0) takes shuffled row p mod n_rows, so with a multiple of n_rows participants
-    each order goes to the same number of them; otherwise the first (n mod n_rows) shuffled rows get
-    one participant more. Same seed, same assignment.
+    Section k takes shuffled row (p // stride_k) mod n_rows_k for participant p (from 0), with stride_k =
+    gcd(n / n_rows_k, product of the earlier sections' n_rows) when n_rows_k divides n (else 1). Each
+    section alone then has every order equally often whenever n is a multiple of its n_rows (otherwise
+    the first n mod n_rows shuffled rows get one participant more), and when n is a multiple of the
+    product of all n_rows every combination of orders is taken equally often (mixed radix). Same seed,
+    same assignment.
     """
-    out = []
+    out, before = [], 1
     for k, section in enumerate(sections):
         rows = design_rows(section)
-        order = np.random.default_rng([seed, ASSIGNMENT_STREAM, k]).permutation(len(rows))
-        row_of = tuple(int(order[p % len(rows)]) for p in range(n_participants))
+        n_rows = len(rows)
+        stride = math.gcd(n_participants // n_rows, before) if n_participants % n_rows == 0 else 1
+        order = np.random.default_rng([seed, ASSIGNMENT_STREAM, k]).permutation(n_rows)
+        row_of = tuple(int(order[(p // max(stride, 1)) % n_rows]) for p in range(n_participants))
         out.append(Assignment(section, k, tuple(rows), row_of, n_runs))
+        before *= n_rows
     return out
+
+
+def crossing(assignments: list[Assignment]) -> str | None:
+    """How far two or more sections are crossed, as a sentence (None for fewer than two sections)."""
+    if len(assignments) < 2:
+        return None
+    combos = Counter(zip(*(a.row_of for a in assignments)))
+    possible = math.prod(len(a.rows) for a in assignments)
+    n = len(assignments[0].row_of)
+    if len(combos) == possible and len(set(combos.values())) == 1:
+        return f"the sections are crossed: each of the {possible} combinations of their orders goes to {n // possible} participant(s)"
+    return (
+        f"the sections are crossed in part: {len(combos)} of the {possible} combinations of their orders occur "
+        f"(a multiple of {possible} participants crosses them fully; each section stays balanced on its own)"
+    )
 
 
 def assign_study(study: Study) -> list[Assignment]:
@@ -200,6 +222,14 @@ def manifest_entry(assignment: Assignment, labels: tuple[str, ...] | list[str]) 
         "participants": {label: assignment.levels_of(p) for p, label in enumerate(labels)},
         "sentence": sentence(assignment),
     }
+
+
+def manifest_section(assignments: list[Assignment], labels: list[str]) -> dict:
+    """manifest.json's counterbalance entries, and how far the sections are crossed."""
+    out: dict = {"counterbalance": [manifest_entry(a, labels) for a in assignments]}
+    if crossing(assignments):
+        out["counterbalance_crossing"] = crossing(assignments)
+    return out
 
 
 def section_problems(section: Counterbalance, n_participants: int, n_runs: int) -> list[tuple[str, str]]:

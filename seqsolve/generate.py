@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from seqsolve.audit import audit_orderings
-from seqsolve.counterbalance import assign_study, manifest_entry, run_values
+from seqsolve.counterbalance import assign_study, manifest_section, run_values
 from seqsolve.efficiency.setup import NO_TR_MESSAGE
 from seqsolve.errors import InternalError, Problem, SpecError
 from seqsolve.io.atomic import ensure_writable, write_folder
@@ -337,7 +337,7 @@ def _counterbalance_summary(study: Study, designs: list[Design]) -> dict:
     """The [[counterbalance]] sections with their orders and each participant's (none: no key)."""
     if not study.spec.counterbalance:
         return {}
-    return {"counterbalance": [manifest_entry(a, [d.label for d in designs]) for a in assign_study(study)]}
+    return manifest_section(assign_study(study), [d.label for d in designs])
 
 
 def _objective_summary(study: Study, designs: list[Design]) -> dict:

@@ -26,6 +26,7 @@ from seqsolve.counterbalance import (
     assign,
     assign_study,
     assignment_problems,
+    crossing,
     design_rows,
     latin_rows,
     sentence,
@@ -136,6 +137,47 @@ def test_uneven_counts_differ_by_at_most_one_when_accepted():
     assert assignment_problems(section, orders) == []
     strict = _section()
     assert "cannot be balanced" in assignment_problems(strict, orders)[0][1]
+
+
+def _hand(**kw) -> Counterbalance:
+    return Counterbalance(**{"name": "hand", "levels": ["left", "right"], "scope": "participants", **kw})
+
+
+def test_sections_are_crossed_when_the_count_allows():
+    """8 participants, 4 Williams orders x 2 hands: every combination once (no order always with one hand)."""
+    a, b = assign([_section(), _hand()], 8, 4, seed=2)
+    assert len(set(zip(a.row_of, b.row_of))) == 8
+    assert "each of the 8 combinations of their orders goes to 1 participant(s)" in crossing([a, b])
+
+
+@pytest.mark.parametrize("n_participants", [4, 12, 20])
+def test_each_section_stays_balanced_when_crossing_cannot_be_full(n_participants):
+    """4 participants cannot cross 4 x 2 orders; each section alone still has every order equally often."""
+    a, b = assign([_section(), _hand()], n_participants, 4, seed=2)
+    assert len(set(Counter(a.row_of).values())) == 1 and len(set(Counter(b.row_of).values())) == 1
+    if n_participants % 8:
+        assert "crossed in part" in crossing([a, b])
+
+
+@given(st.lists(st.integers(2, 5), min_size=1, max_size=3), st.integers(1, 4), st.integers(0, 1000))
+@settings(max_examples=60, deadline=None, derandomize=True)
+def test_assignment_balances_each_section_for_any_common_multiple(levels, times, seed):
+    """Whatever the sections, with a participant count that each section's orders divide, each alone is
+    balanced (its own audit passes), and with a multiple of their product every combination is equal."""
+    sections = [
+        _hand(name=f"f{i}", levels=[f"l{j}" for j in range(n)])
+        if i % 2
+        else _section(name=f"f{i}", levels=[f"l{j}" for j in range(n)])
+        for i, n in enumerate(levels)
+    ]
+    sizes = [len(design_rows(sec)) for sec in sections]
+    n_participants = math.lcm(*sizes) * times
+    found = assign(sections, n_participants, max(levels) * math.lcm(*levels), seed)
+    for a in found:
+        orders = {str(p): tuple(a.levels_of(p)[: len(a.rows[0])]) for p in range(n_participants)}
+        assert assignment_problems(a.section, orders) == []
+    if n_participants % math.prod(sizes) == 0:
+        assert len(set(Counter(zip(*(a.row_of for a in found))).values())) == 1
 
 
 def test_accepted_imbalance_still_needs_every_order():

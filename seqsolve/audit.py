@@ -7,6 +7,8 @@ from pathlib import Path
 
 import numpy as np
 
+from seqsolve.counterbalance import assignment_problems
+from seqsolve.io.participants import PARTICIPANTS_FILE, is_participants_table, read_assignment
 from seqsolve.io.tables import read_designs
 from seqsolve.rules import Violation
 from seqsolve.spec import Study
@@ -99,15 +101,59 @@ def timing_violations(study: Study, codes: np.ndarray, onsets: np.ndarray, run: 
     return out
 
 
+def assignment_violations(study: Study, path: str | Path) -> tuple[list[str], list[Violation]]:
+    """The participants of a participants table and where its counterbalanced assignment breaks the
+    spec's [[counterbalance]] sections (see counterbalance.assignment_problems)."""
+    read = read_assignment(study, path)
+    out = []
+    for i, section in enumerate(study.spec.counterbalance, start=1):
+        rule = f"counterbalance[{i}] '{section.name}'"
+        for label, found in assignment_problems(section, read[section.name]):
+            out.append(Violation(rule, None, (), found, label))
+    return list(read[study.spec.counterbalance[0].name]), out
+
+
+def _expand(study: Study, paths: list[str | Path]) -> tuple[list[Path], list[Path]]:
+    """(ordering files, participants tables): an output folder stands for its orderings.csv and, when
+    the spec counterbalances, its participants.tsv (a table given by name is always read: without
+    [[counterbalance]] the reader says there is nothing to check)."""
+    orderings, tables = [], []
+    for p in map(Path, paths):
+        if p.is_dir():
+            orderings.append(p / "orderings.csv")
+            if study.spec.counterbalance and (p / PARTICIPANTS_FILE).is_file():
+                tables.append(p / PARTICIPANTS_FILE)
+        elif is_participants_table(p):
+            tables.append(p)
+        else:
+            orderings.append(p)
+    return orderings, tables
+
+
 def audit(study: Study, paths: list[str | Path]) -> AuditReport:
-    """Read ordering files (orderings.csv or BIDS events.tsv) and check them against the spec: every
-    rule, and the onsets against [timing] where the files give them.
+    """Read ordering files (orderings.csv or BIDS events.tsv, or an output folder) and check them against
+    the spec: every rule, and the onsets against [timing] where the files give them. A participants.tsv
+    (given, or in the folder, when the spec counterbalances) is checked against [[counterbalance]]:
+    each order taken equally often and the design's balance.
 
     Raises
     ------
     OrderingFileError
         When a file cannot be read against the spec.
     """
+    orderings, tables = _expand(study, paths)
+    report = _audit_orderings_files(study, orderings) if orderings else audit_orderings(study, {})
+    for table in tables:
+        labels, found = assignment_violations(study, table)
+        report.participants += [label for label in labels if label not in report.participants]
+        report.violations += found
+    if tables:
+        report.rules += [f"counterbalance[{i}] '{c.name}'" for i, c in enumerate(study.spec.counterbalance, start=1)]
+    return report
+
+
+def _audit_orderings_files(study: Study, paths: list[Path]) -> AuditReport:
+    """Every rule and the timing, on ordering files."""
     designs = read_designs(study, paths)
     report = audit_orderings(study, {label: [codes for codes, _ in runs] for label, runs in designs.items()})
     timed = [

@@ -131,6 +131,7 @@ class _StepDisplay:
     def __init__(self):
         self.tty = sys.stderr.isatty()
         self.last = 0.0
+        self.timed = True  # False for a spec without timing.tr: counterbalance is then the only figure
 
     def __call__(self, p) -> None:
         now = time.perf_counter()
@@ -141,6 +142,8 @@ class _StepDisplay:
         parts = (
             ""
             if f is None
+            else f"best {f.score:.4f} (counterbalance {f.counterbalance:.3f})"
+            if not self.timed
             else (
                 f"best {f.score:.4f} (detection {100 * f.detection_vs_block:.0f}% of block, "
                 f"estimation {f.estimation_vs_random:.2f}x random)"
@@ -225,6 +228,7 @@ def generate(
     display = _StepDisplay()
     with _guarded(spec, display):
         study = load_study(spec, seed=seed)
+        display.timed = study.spec.timing.tr is not None
         steps = study.spec.objective.iterations if iterations is None else iterations
         if budget is not None and iterations is None:
             plan = f"search of {budget:g} s per participant"
@@ -265,7 +269,7 @@ def _check_seconds(option: str, value: float | None) -> None:
 
 def _report_designs(designs, study, out: Path, started: float) -> None:
     if designs and designs[0].figures is not None:
-        typer.echo(_designs_table(designs))
+        typer.echo(_designs_table(designs, study.spec.timing.tr is not None))
     for note in designs.notes:
         typer.echo(f"note: {note}")
     typer.echo(
@@ -288,7 +292,8 @@ def _table(head: list[str], rows: list[list[str]]) -> str:
     return "\n".join(out)
 
 
-def _designs_table(designs) -> str:
+def _designs_table(designs, timed: bool = True) -> str:
+    """The searched designs' figures; without a TR (timed False) detection and estimation show '-'."""
     head = ["participant", "score", "detection vs block", "estimation vs random", "counterbalance", "rounds", "stopped"]
     rows = []
     for d in designs:
@@ -300,8 +305,8 @@ def _designs_table(designs) -> str:
             [
                 d.label,
                 f"{f.score:.4f}",
-                f"{100 * f.detection_vs_block:.1f}%",
-                f"{f.estimation_vs_random:.3f}x",
+                f"{100 * f.detection_vs_block:.1f}%" if timed else "-",
+                f"{f.estimation_vs_random:.3f}x" if timed else "-",
                 f"{f.counterbalance:.3f}",
                 str(info.get("iterations", 0)),
                 info.get("stopped", "") + (" (rescued)" if "rescued_from" in info else ""),
@@ -310,11 +315,13 @@ def _designs_table(designs) -> str:
     text = _table(head, rows)
     spread = designs.spread()
     w = designs.weights
-    text += (
-        f"\nscore = {w.detection:.2f} x detection vs block + {w.estimation:.2f} x estimation vs random"
+    formula = (
+        f"{w.detection:.2f} x detection vs block + {w.estimation:.2f} x estimation vs random"
         + (f" + {w.counterbalance:.2f} x counterbalance" if w.counterbalance else "")
-        + (f"; spread across participants {100 * spread:.1f}%" if spread is not None else "")
+        if timed
+        else "counterbalance (no timing.tr: detection and estimation are not computed)"
     )
+    text += f"\nscore = {formula}" + (f"; spread across participants {100 * spread:.1f}%" if spread is not None else "")
     return text
 
 
@@ -322,11 +329,17 @@ def _designs_table(designs) -> str:
 def audit(
     spec: SpecArg,
     files: Annotated[
-        list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)
+        list[Path],
+        typer.Argument(
+            help="orderings.csv and/or BIDS *_events.tsv files, a participants.tsv (counterbalancing), "
+            "or an output folder (its orderings.csv and participants.tsv).",
+            show_default=False,
+        ),
     ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
 ) -> None:
-    """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
+    """Check existing orderings against the spec's rules, and a study's counterbalanced assignment
+    against its [[counterbalance]] sections (exit 0 valid, 1 violations, 2 bad input).
 
     Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
     """
@@ -348,14 +361,27 @@ def audit(
             )
         )
     else:
-        typer.echo(
-            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
-            "its trial counts and its timing"
-        )
+        typer.echo(_audit_scope(study, report))
         for v in report.violations:
             typer.echo(f"  {v.describe()}")
         typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
     raise typer.Exit(0 if report.valid else 1)
+
+
+def _audit_scope(study, report) -> str:
+    """What audit checked: orderings (rules, counts, timing) and/or a counterbalanced assignment."""
+    from seqsolve.audit import TIMING_RULE
+
+    n = len(report.participants)
+    factors = sum(r.startswith("counterbalance[") for r in report.rules)
+    names = [c.name for c in study.spec.counterbalance]
+    cb = f"its {len(names)} counterbalanced factor(s) ({', '.join(names)})"
+    if TIMING_RULE not in report.rules:
+        return f"checked the assignment of {n} participant(s) against {cb}"
+    head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), its trial counts and its timing"
+    if not factors and study.spec.counterbalance:
+        return head + f"; not {cb}: give the output folder or its participants.tsv for that"
+    return head + (f", and their assignment against {cb}" if factors else "")
 
 
 @app.command()
@@ -381,6 +407,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
         )
         for r, src in zip(study.rules, study.rule_sources):
             typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+        _echo_counterbalance(study)
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())
     raise typer.Exit(1)
@@ -423,6 +450,19 @@ def score(
         "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
         "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
     )
+
+
+def _echo_counterbalance(study) -> None:
+    """The [[counterbalance]] sections as sentences, with the study's counts (assignment from its seed)."""
+    from seqsolve.counterbalance import assign_study, crossing, sentence
+
+    found = assign_study(study)
+    if found:
+        typer.echo(f"across the {len(study.participants)} participant(s), from seed {study.spec.study.seed}:")
+    for a in found:
+        typer.echo(f"  - counterbalance[{a.index + 1}]: {sentence(a)}")
+    if crossing(found):
+        typer.echo(f"  - {crossing(found)}")
 
 
 def _check_scope(study) -> str:

@@ -13,14 +13,15 @@ from pathlib import Path
 import numpy as np
 
 from seqsolve.audit import audit_orderings
-from seqsolve.efficiency.setup import make_setup
-from seqsolve.errors import InternalError
+from seqsolve.counterbalance import assign_study, manifest_section, run_values
+from seqsolve.efficiency.setup import NO_TR_MESSAGE
+from seqsolve.errors import InternalError, Problem, SpecError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.bids import bids_files
 from seqsolve.io.onsets import run_onset_files
 from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
-from seqsolve.objective import Figures, References, Scorer, Weights
+from seqsolve.objective import Figures, References, Scorer, Weights, scoring_setup
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
 from seqsolve.seeds import reference_seed
 from seqsolve.solve import (
@@ -113,7 +114,7 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
     """Every participant's search, run on its own (in search.workers processes when above 1), then
     a pass in participant order that searches again, knowing the earlier participants' designs,
     for any design that repeats one of them (or breaks a participants-differ rule)."""
-    setup = make_setup(study)
+    setup = scoring_setup(study)
     weights = Weights.from_study(study)
     method = choose_method(study, options)
     out = StudyDesigns(weights=weights)
@@ -252,8 +253,12 @@ def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_ste
 
 
 def efficiency_summary(study: Study, design: Design) -> dict:
-    """Detection and estimation per run and for all runs (no reference designs: kept quick)."""
+    """Detection and estimation per run and for all runs (no reference designs: kept quick); without
+    timing.tr only the sequence figures (largest pair-count deviation, next-trial entropy)."""
     from seqsolve.score import score_design
+
+    if study.spec.timing.tr is None:
+        return sequence_summary(study, design.runs)
 
     rows = score_design(study, design.label, design.runs, design.schedules, with_references=False)
     return {
@@ -265,6 +270,32 @@ def efficiency_summary(study: Study, design: Design) -> dict:
         }
         for r in rows
     }
+
+
+def sequence_summary(study: Study, runs: list[np.ndarray]) -> dict:
+    """Per run and for all runs: the largest deviation from ideal pair counts, the next-trial entropy."""
+    from seqsolve.efficiency.metrics import conditional_entropy, counterbalance_deviation
+
+    parts = [([r], f"{r + 1}") for r in range(len(runs))] + ([(list(range(len(runs))), "all")] if len(runs) > 1 else [])
+    return {
+        name: {
+            "counterbalance_max": round(
+                counterbalance_deviation([runs[r] for r in idx], study.facts.counts[idx])["max"], 9
+            ),
+            "entropy_bits": round(conditional_entropy([runs[r] for r in idx], study.facts.n_conditions), 9),
+        }
+        for idx, name in parts
+    }
+
+
+def _score_entry(study: Study, d: Design) -> dict:
+    """A participant's search figures; without timing.tr only the score and counterbalance mean anything."""
+    if d.figures is None:
+        return {}
+    score = d.figures.as_dict()
+    if study.spec.timing.tr is None:
+        score = {k: score[k] for k in ("score", "counterbalance")}
+    return {"score": score, "search": d.search}
 
 
 def manifest(study: Study, designs: list[Design]) -> dict:
@@ -290,7 +321,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
                 "rules_passed": len(rules),
                 "violations": 0,
                 "metrics": efficiency_summary(study, d),
-                **({"score": d.figures.as_dict(), "search": d.search} if d.figures is not None else {}),
+                **_score_entry(study, d),
                 "runs": [
                     {"run": r + 1, "trials": int(len(s.codes)), "volumes": s.n_volumes, "seconds": round(s.length, 6)}
                     for r, s in enumerate(d.schedules)
@@ -298,7 +329,15 @@ def manifest(study: Study, designs: list[Design]) -> dict:
             }
             for d in designs
         ],
+        **_counterbalance_summary(study, designs),
     }
+
+
+def _counterbalance_summary(study: Study, designs: list[Design]) -> dict:
+    """The [[counterbalance]] sections with their orders and each participant's (none: no key)."""
+    if not study.spec.counterbalance:
+        return {}
+    return manifest_section(assign_study(study), [d.label for d in designs])
 
 
 def _objective_summary(study: Study, designs: list[Design]) -> dict:
@@ -306,7 +345,8 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
     out: dict = {"spec": study.spec.objective.model_dump(mode="json")}
     if isinstance(designs, StudyDesigns) and designs.weights is not None:
         out["weights"] = designs.weights.as_dict()
-        out["references"] = designs.references.as_dict() if designs.references else None
+        timed = study.spec.timing.tr is not None  # without a TR there is nothing to divide by
+        out["references"] = designs.references.as_dict() if designs.references and timed else None
         spread = designs.spread()
         out["spread"] = None if spread is None else round(spread, 9)
         out["interrupted"] = designs.interrupted
@@ -321,14 +361,19 @@ def output_files(
 ) -> dict[str, str | bytes]:
     """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files);
     onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
-    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"])
+    cb = assign_study(study)
+    index = {label: i for i, label in enumerate(study.participants)}
+    columns = {a.section.name: [a.text_of(index[d.label]) for d in designs] for a in cb}
+    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"], columns)
+    per_run = {d.label: [run_values(cb, index[d.label], r) for r in range(len(d.schedules))] for d in designs}
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
-            files[events_filename(study, d.label, r)] = events_tsv(study, s)
-            files[trials_filename(d.label, r)] = trials_csv(study, s)
+            runs_only = run_values(cb, index[d.label], r - 1, "runs")
+            files[events_filename(study, d.label, r)] = events_tsv(study, s, runs_only)
+            files[trials_filename(d.label, r)] = trials_csv(study, s, per_run[d.label][r - 1])
             if onset_files:
                 files.update(run_onset_files(study, d.label, r, s))
-    files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs})
+    files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs}, per_run if cb else None)
     if front:
         from seqsolve.tradeoff import front_tsv
 
@@ -362,6 +407,10 @@ def generate(
     InfeasibleError, SolverTimeoutError
         When no valid ordering can be produced.
     """
+    if front and study.spec.timing.tr is None:  # before any search: the front is made of fMRI figures
+        raise SpecError(
+            study.source, [Problem("timing.tr", f"--front trades detection against estimation; {NO_TR_MESSAGE}")]
+        )
     ensure_writable(outdir, force)
     designs = design_study(study, options, progress, search, on_step)
     points = None

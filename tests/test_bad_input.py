@@ -147,7 +147,11 @@ SPECS = [
         BASE.replace("participants = 2", "participants = ['p-1']"), ["study.participants[1]", "pattern"], id="bad-label"
     ),
     pytest.param(BASE.replace("[timing]", "[timing\n"), ["TOML syntax error", "line"], id="toml-syntax"),
-    pytest.param(BASE.replace("tr = 2.0\n", ""), ["timing.tr", "missing required key"], id="missing-tr"),
+    pytest.param(
+        BASE.replace("tr = 2.0\n", "") + "\n[objective]\ndetection = 1.0\n",
+        ["objective.detection", "needs timing.tr"],
+        id="detection-without-tr",
+    ),
     pytest.param(
         BASE + "\n[analysis]\ncontrasts = ['gain - lost']\n",
         ["analysis.contrasts[1]", "'lost'", "modelled: gain, loss"],

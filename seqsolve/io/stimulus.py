@@ -36,19 +36,24 @@ def factor_columns(study: Study) -> dict[str, str]:
     return out
 
 
-def trials_csv(study: Study, sched: RunSchedule) -> str:
+def trials_csv(study: Study, sched: RunSchedule, extra: dict[str, str] | None = None) -> str:
     """One run as a CSV table: position (from 1), condition, one column per factor (its level, empty
     for conditions without one), onset and duration (seconds from the run's first volume), and gap
     (seconds from the trial's end to the next trial's onset; after the last trial, to the run's end,
-    so onset + duration + gap of the last row is the run's length)."""
+    so onset + duration + gap of the last row is the run's length). extra: {column: value} holding
+    for the whole run (counterbalanced factors: the run's level, the participant's mapping), written
+    after the factor columns."""
+    extra = extra or {}
     factors = factor_columns(study)
     ends = sched.onsets + sched.durations
     nexts = list(sched.onsets[1:]) + [sched.length]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow((*FIRST_COLUMNS, *factors.values(), *TIME_COLUMNS))
+    w.writerow((*FIRST_COLUMNS, *factors.values(), *extra, *TIME_COLUMNS))
     for p, (c, on, du, end, nxt) in enumerate(zip(sched.codes, sched.onsets, sched.durations, ends, nexts), start=1):
         levels = study.spec.conditions[c].levels
         gap = max(round(float(nxt - end), 6), 0.0)  # rounding: onsets are kept to the microsecond
-        w.writerow([p, study.names[c], *(levels.get(f, "") for f in factors), _num(on), _num(du), _num(gap)])
+        w.writerow(
+            [p, study.names[c], *(levels.get(f, "") for f in factors), *extra.values(), _num(on), _num(du), _num(gap)]
+        )
     return buf.getvalue()

@@ -30,29 +30,38 @@ def events_filename(study: Study, label: str, run: int) -> str:
     return f"sub-{label}/sub-{label}_task-{study.spec.study.task}_run-{run}_events.tsv"
 
 
-def events_tsv(study: Study, sched: RunSchedule) -> str:
-    """BIDS events table of one run: onset, duration, trial_type; the baseline's trials omitted."""
-    lines = ["\t".join(EVENTS_COLUMNS)]
+def events_tsv(study: Study, sched: RunSchedule, extra: dict[str, str] | None = None) -> str:
+    """BIDS events table of one run: onset, duration, trial_type; the baseline's trials omitted.
+    extra: {column: value} that holds for the whole run (a counterbalanced run level), on every row."""
+    extra = extra or {}
+    tail = "".join(f"\t{v}" for v in extra.values())
+    lines = ["\t".join([*EVENTS_COLUMNS, *extra])]
     for c, on, du in zip(sched.codes, sched.onsets, sched.durations):
         if c != study.facts.baseline:
-            lines.append(f"{_num(on)}\t{_num(du)}\t{study.names[c]}")
+            lines.append(f"{_num(on)}\t{_num(du)}\t{study.names[c]}{tail}")
     return "\n".join(lines) + "\n"
 
 
-def orderings_csv(study: Study, designs: dict[str, list[RunSchedule]]) -> str:
+def orderings_csv(
+    study: Study, designs: dict[str, list[RunSchedule]], extra: dict[str, list[dict[str, str]]] | None = None
+) -> str:
     """Every trial of every participant, baseline included, in one table.
 
-    The last column, participant_id ('sub-01'), keeps the label text for readers that turn '01' in
-    the participant column into the number 1 (pandas, R, spreadsheets); it is last so that the
-    columns before it stay where earlier versions put them.
+    The column participant_id ('sub-01') keeps the label text for readers that turn '01' in
+    the participant column into the number 1 (pandas, R, spreadsheets); it follows the columns
+    earlier versions wrote, so they stay where they were. extra: per participant and run, {column:
+    value} holding for the whole run (counterbalanced factors), written after participant_id.
     """
+    extra = extra or {}
+    names = list(next(iter(extra.values()))[0]) if extra else []
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow((*ORDERING_COLUMNS, "participant_id"))
+    w.writerow((*ORDERING_COLUMNS, "participant_id", *names))
     for label, scheds in designs.items():
         for r, s in enumerate(scheds, start=1):
+            tail = list(extra[label][r - 1].values()) if extra else []
             for p, (c, on, du) in enumerate(zip(s.codes, s.onsets, s.durations), start=1):
-                w.writerow([label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}"])
+                w.writerow([label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}", *tail])
     return buf.getvalue()
 
 
@@ -201,7 +210,8 @@ def _checked_onsets(study: Study, where: str, label: str, run: int, times: np.nd
                 )
             ],
         )
-    volumes = (times[-1] if len(times) else 0.0) / study.spec.timing.tr
+    tr = study.spec.timing.tr  # without one (EEG/behavioural) onsets are bounded as seconds when read
+    volumes = (times[-1] if len(times) else 0.0) / tr if tr is not None else 0.0
     if volumes > limits.VOLUMES_PER_RUN.value():
         raise OrderingFileError(
             where,

@@ -276,7 +276,8 @@ def _report_designs(designs, study, out: Path, started: float) -> None:
     extra += f", {out}/onsets/" if (out / "onsets").exists() else ""
     typer.echo(
         f"  a BIDS dataset skeleton: {out}/dataset_description.json, {out}/sub-*/...events.tsv; "
-        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}"
+        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}; "
+        f"to read and share: {out}/report.html"
     )
 
 
@@ -558,6 +559,26 @@ def compare(
     )
     if plot is not None:
         typer.echo(f"wrote {plot}")
+
+
+@app.command()
+def report(
+    folder: Annotated[Path, typer.Argument(help="An output folder written by generate.", show_default=False)],
+    force: Annotated[bool, typer.Option(help="Replace an existing report.html.")] = False,
+) -> None:
+    """(Re)build FOLDER/report.html: one self-contained HTML page (pictures inline, no network) of the rules,
+    each participant's figures, a design matrix, transition counts and the detection/estimation plane.
+
+    It reads only the folder: manifest.json, orderings.csv, front.tsv (generate --front) and compare.json
+    (`seqsolve compare SPEC --json > FOLDER/compare.json`) where present.
+
+    Example: seqsolve report designs/ --force
+    """
+    from seqsolve.report import write_report
+
+    with _guarded(None):
+        path = write_report(folder, force)
+    typer.echo(f"wrote {path}")
 
 
 @app.command()

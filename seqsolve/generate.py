@@ -270,16 +270,18 @@ def efficiency_summary(study: Study, design: Design) -> dict:
 def manifest(study: Study, designs: list[Design]) -> dict:
     """What made these outputs: versions, spec hash, seeds, rule summary per participant."""
     rules = [
-        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind} for r, s in zip(study.rules, study.rule_sources)
+        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind, "label": r.label}
+        for r, s in zip(study.rules, study.rule_sources)
     ]
     return {
         "tool": "seqsolve",
         "versions": versions(),
-        "spec": {"file": Path(study.source).name, "hash": study.spec_hash},
+        "spec": {"file": Path(study.source).name, "hash": study.spec_hash, "study": study.spec.study.name},
         "seed": study.spec.study.seed,
         "conditions": {n: int(c) for n, c in zip(study.names, study.facts.counts[0])},
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
+        "timing": study.spec.timing.model_dump(mode="json"),
         "analysis": study.spec.analysis.model_dump(mode="json"),
         "objective": _objective_summary(study, designs),
         "participants": [
@@ -319,8 +321,8 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
 def output_files(
     study: Study, designs: list[Design], front: list | None = None, onset_files: bool = False
 ) -> dict[str, str | bytes]:
-    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files);
-    onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
+    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files,
+    report.html among them); onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
     files = bids_files(study, [d.label for d in designs], versions()["seqsolve"])
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
@@ -334,6 +336,9 @@ def output_files(
 
         files["front.tsv"] = front_tsv(study, front)
     files["manifest.json"] = json.dumps(manifest(study, designs), indent=2) + "\n"
+    from seqsolve.report import REPORT_NAME, report_html  # matplotlib comes in only here
+
+    files[REPORT_NAME] = report_html(files)  # from the folder's own files, as `seqsolve report` rebuilds it
     return files
 
 

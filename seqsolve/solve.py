@@ -131,11 +131,13 @@ def sample_orderings(
     n: int,
     earlier: list[list[np.ndarray]] | None = None,
     options: SolveOptions | None = None,
+    on_sample: Callable[[int, int], None] | None = None,
 ) -> list[list[np.ndarray]]:
     """n valid designs for one participant, each from its own seed (duplicates dropped).
 
-    Used as diverse starting points by the search and as the random valid sample of compare.
+    Used as diverse starting points by the search and as the random valid sample of compare and audit.
     Each design passes every rule's check and clashes with none of the earlier participants.
+    on_sample(k, n) is called after the k-th solve (for progress lines).
     """
     options = options or SolveOptions()
     earlier = earlier or []
@@ -152,6 +154,8 @@ def sample_orderings(
         if key not in seen:
             seen.add(key)
             out.append(runs)
+        if on_sample is not None:
+            on_sample(i + 1, n)
     return out
 
 

@@ -124,6 +124,31 @@ def _progress(started: float):
     return show
 
 
+class _Countdown:
+    """'<what> k of N, elapsed, about T s left' on stderr: rewritten in place on a terminal, else a line
+    every few seconds (and the first and last), so long runs are never silent and logs stay short."""
+
+    def __init__(self, what: str, every: float = 5.0):
+        self.what, self.every, self.tty = what, every, sys.stderr.isatty()
+        self.started = time.perf_counter()
+        self.last = -1e9
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.perf_counter()
+        if done not in (1, total) and now - self.last < (0.2 if self.tty else self.every):
+            return
+        self.last = now
+        spent = now - self.started
+        left = spent / done * (total - done) if done else 0.0
+        line = f"  {self.what} {done} of {total}, {spent:.1f} s" + (
+            f", about {left:.0f} s left" if done < total else ""
+        )
+        if self.tty:
+            typer.echo("\r" + line.ljust(80), err=True, nl=done >= total)
+        else:
+            typer.echo(line, err=True)
+
+
 class _StepDisplay:
     """One status line on stderr during the search: rewritten in place on a terminal, else a line
     every few seconds (so logs stay short)."""
@@ -326,8 +351,21 @@ def audit(
         list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)
     ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
+    rank: Annotated[
+        int,
+        typer.Option(
+            min=0,
+            max=100_000,
+            help="Rank each design among this many valid designs sampled under the same rules (seeded by the "
+            "spec's seed; 0: no ranking, no solver).",
+        ),
+    ] = 100,
 ) -> None:
     """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
+
+    Files may hold some of the runs only (e.g. one run of four): the runs present are checked and the
+    absent ones named. Each complete design is also ranked: the percent of valid designs, sampled under
+    the same rules, that score at or below it on the spec's [objective].
 
     Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
     """
@@ -336,27 +374,44 @@ def audit(
 
     with _guarded(spec):
         study = load_study(spec)
-        report = run_audit(study, files)
+        report = run_audit(study, files, rank, _Countdown("ranking: valid design"))
     if as_json:
-        typer.echo(
-            json.dumps(
-                {
-                    "valid": report.valid,
-                    "participants": report.participants,
-                    "violations": [v.__dict__ for v in report.violations],
-                },
-                indent=2,
-            )
-        )
+        typer.echo(json.dumps(_audit_json(report), indent=2))
     else:
-        typer.echo(
-            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
-            "its trial counts and its timing"
-        )
-        for v in report.violations:
-            typer.echo(f"  {v.describe()}")
-        typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
+        _print_audit(study, report)
     raise typer.Exit(0 if report.valid else 1)
+
+
+def _audit_json(report) -> dict:
+    return {
+        "valid": report.valid,
+        "participants": report.participants,
+        "absent_runs": report.absent,
+        "violations": [v.__dict__ for v in report.violations],
+        "ranks": [r.__dict__ for r in report.ranks],
+        "notes": report.notes,
+    }
+
+
+def _print_audit(study, report) -> None:
+    typer.echo(
+        f"checked {len(report.participants)} participant(s) against the {len(study.rules)} rule(s) that "
+        "`seqsolve check` lists, the spec's trial counts and its timing"
+    )
+    for label, runs in report.absent.items():
+        typer.echo(f"  participant {label}: run(s) {', '.join(map(str, runs))} not in the files; the others checked")
+    for v in report.violations:
+        typer.echo(f"  {v.describe()}")
+    for note in report.notes:
+        typer.echo(f"note: {note}")
+    if report.ranks:
+        n = report.ranks[0].samples
+        typer.echo(f"rank among {n} valid designs sampled under the same rules (score as generate steers by it):")
+        for r in report.ranks:
+            typer.echo(
+                f"  participant {r.participant}: score {r.score:.4f}, above or equal to {r.percentile:.0f}% of them"
+            )
+    typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
 
 
 @app.command()
@@ -368,6 +423,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
 
     Example: seqsolve check examples/reward_cue.toml
     """
+    from seqsolve.rules._text import rule_line
     from seqsolve.solve import SolveOptions, check_study
     from seqsolve.spec import load_study
 
@@ -381,7 +437,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
             f"({result.method} model, {result.seconds:.2f} s):"
         )
         for r, src in zip(study.rules, study.rule_sources):
-            typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+            typer.echo(f"  - {rule_line(src, r.label, r.sentence(study.facts))}")
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())
     raise typer.Exit(1)

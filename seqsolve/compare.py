@@ -78,8 +78,9 @@ class Comparison:
 
     def front_marks(self) -> list[FrontMark]:
         return [
-            FrontMark(p.weights.detection, p.weights.estimation, p.figures.detection_vs_block,
-                      p.figures.estimation_vs_random)
+            FrontMark(
+                p.weights.detection, p.weights.estimation, p.figures.detection_vs_block, p.figures.estimation_vs_random
+            )
             for p in self.front
         ]
 

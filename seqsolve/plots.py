@@ -121,8 +121,14 @@ def draw_plane(ax, clouds: list[Cloud], front: list[FrontMark]) -> None:
             label=f"seqsolve front ({len(keep)} of {len(front)} weightings not dominated)",
         )
         for m in keep:
-            ax.annotate(m.label, (100.0 * m.detection, m.estimation), fontsize=7, xytext=(4, 4),
-                        textcoords="offset points", color="tab:blue")
+            ax.annotate(
+                m.label,
+                (100.0 * m.detection, m.estimation),
+                fontsize=7,
+                xytext=(4, 4),
+                textcoords="offset points",
+                color="tab:blue",
+            )
     ax.set_xlabel(DETECTION_AXIS)
     ax.set_ylabel(ESTIMATION_AXIS)
     ax.grid(alpha=0.3)

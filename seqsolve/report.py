@@ -63,7 +63,9 @@ def read_output_folder(folder: str | Path) -> dict[str, str]:
             try:
                 out[name] = path.read_text(encoding="utf-8")
             except (OSError, UnicodeDecodeError) as exc:
-                raise InputError(str(path), [Problem("", f"cannot be read ({exc}); is it a seqsolve output?")]) from None
+                raise InputError(
+                    str(path), [Problem("", f"cannot be read ({exc}); is it a seqsolve output?")]
+                ) from None
     return out
 
 
@@ -73,7 +75,9 @@ def _json(files: Mapping[str, str | bytes], name: str) -> dict | None:
     try:
         return json.loads(files[name])
     except json.JSONDecodeError as exc:
-        raise InputError(name, [Problem(f"line {exc.lineno}", f"not valid JSON ({exc.msg}); regenerate the file")]) from None
+        raise InputError(
+            name, [Problem(f"line {exc.lineno}", f"not valid JSON ({exc.msg}); regenerate the file")]
+        ) from None
 
 
 def _orderings(text: str) -> dict[str, dict[int, list[tuple[str, float, float]]]]:
@@ -228,9 +232,8 @@ def _participants_section(m: dict) -> str:
     w = obj.get("weights")
     text = ""
     if w:
-        text += (
-            f"score = {w['detection']:.2f} x detection vs block + {w['estimation']:.2f} x estimation vs random"
-            + (f" + {w['counterbalance']:.2f} x counterbalance" if w.get("counterbalance") else "")
+        text += f"score = {w['detection']:.2f} x detection vs block + {w['estimation']:.2f} x estimation vs random" + (
+            f" + {w['counterbalance']:.2f} x counterbalance" if w.get("counterbalance") else ""
         )
     if obj.get("spread") is not None:
         text += f"; spread across participants {100 * obj['spread']:.1f}% (1 - lowest score / highest)"
@@ -319,7 +322,9 @@ def _transitions_section(m: dict, orderings: dict) -> str:
     shown = [(p["label"], transition_counts(orderings[p["label"]], names)) for p in m["participants"][:MAX_HEAT_MAPS]]
     png = _heat_maps_png(shown, names)
     more = len(m["participants"]) - len(shown)
-    caption = "How often the column's condition directly follows the row's, within runs, summed over a participant's runs."
+    caption = (
+        "How often the column's condition directly follows the row's, within runs, summed over a participant's runs."
+    )
     if more > 0:
         caption += f" The first {len(shown)} participants are shown; {more} more are in orderings.csv."
     return f"<h2>Transitions</h2>{_img(png, 'transition counts')}<p class=caption>{html.escape(caption)}</p>"

@@ -571,7 +571,8 @@ def compare(
         if plot is not None:
             check_plot_path(plot, force)
         study = load_study(spec)
-        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display)
+        countdown = _Countdown("random valid designs: sample")
+        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display, countdown)
         display.end_line()
         if plot is not None:
             draw(result, plot, study.spec.study.name)
@@ -607,7 +608,7 @@ def compare(
     head = ["family", "designs", "best detection", "mean detection", "best estimation", "mean estimation"]
     typer.echo(_table(head, rows))
     for r in result.summary():
-        typer.echo(f"  {r['family']}: {r['note']}")
+        typer.echo(f"  {r['family']}: " + (f"{r['absent']}: " if r["absent"] else "") + r["note"])
     ref = result.references
     typer.echo(
         f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "

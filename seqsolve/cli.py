@@ -153,9 +153,26 @@ class _StepDisplay:
     """One status line on stderr during the search: rewritten in place on a terminal, else a line
     every few seconds (so logs stay short)."""
 
-    def __init__(self):
+    def __init__(self, participants: tuple[str, ...] = ()):
         self.tty = sys.stderr.isatty()
         self.last = 0.0
+        self.order = {label: i for i, label in enumerate(participants)}  # "participant k of P" for these
+        self.done, self.started = 0, time.perf_counter()
+
+    def participants_done(self, done: int, total: int, label: str) -> None:
+        """generate's progress: `done` participants finished (their time gives the estimate of what is left)."""
+        self.done = done
+
+    def _whose(self, label: str) -> str:
+        """'participant 2 of 6 (02), about 40 s left' for a study's participant; the label alone otherwise."""
+        if label not in self.order:
+            return label
+        total = len(self.order)
+        text = f"participant {self.order[label] + 1} of {total} ({label})"
+        if self.done:
+            spent = time.perf_counter() - self.started
+            text += f", about {max(0.0, spent / self.done * (total - self.done)):.0f} s left in all"
+        return text
 
     def __call__(self, p) -> None:
         now = time.perf_counter()
@@ -172,9 +189,9 @@ class _StepDisplay:
             )
         )
         of = "" if p.iterations >= 10**12 else f"/{p.iterations}"  # a search to a budget has no round count
-        line = f"  {p.participant}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
+        line = f"  {self._whose(p.participant)}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
         if self.tty:
-            typer.echo("\r" + line.ljust(100)[:100], err=True, nl=False)
+            typer.echo("\r" + line.ljust(140)[:140], err=True, nl=False)
         else:
             typer.echo(line, err=True)
 
@@ -250,6 +267,7 @@ def generate(
     display = _StepDisplay()
     with _guarded(spec, display):
         study = load_study(spec, seed=seed)
+        display = _StepDisplay(study.participants)
         steps = study.spec.objective.iterations if iterations is None else iterations
         if budget is not None and iterations is None:
             plan = f"search of {budget:g} s per participant"
@@ -268,11 +286,12 @@ def generate(
             out,
             force=force,
             options=solve,
-            progress=None if (steps or budget is not None) else _progress(started),
+            progress=display.participants_done if (steps or budget is not None) else _progress(started),
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
             onset_files=onset_files,
+            on_note=lambda text: (display.end_line(), typer.echo(f"  {text} ...", err=True)),
         )
         display.end_line()
         _report_designs(designs, study, out, started)
@@ -322,6 +341,8 @@ def _designs_table(designs) -> str:
         if f is None:
             rows.append([d.label, "-", "-", "-", "-", "0", "not searched"])
             continue
+        stopped = info.get("stopped", "")
+        stopped = "not reached (first valid design)" if stopped == "not reached" else stopped
         rows.append(
             [
                 d.label,
@@ -330,7 +351,7 @@ def _designs_table(designs) -> str:
                 f"{f.estimation_vs_random:.3f}x",
                 f"{f.counterbalance:.3f}",
                 str(info.get("iterations", 0)),
-                info.get("stopped", "") + (" (rescued)" if "rescued_from" in info else ""),
+                stopped + (" (rescued)" if "rescued_from" in info else ""),
             ]
         )
     text = _table(head, rows)

@@ -32,7 +32,7 @@ from seqsolve.solve import (
     sample_orderings,
 )
 from seqsolve.spec import Study
-from seqsolve.timing import RunSchedule, make_schedules
+from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
 from seqsolve.workers import Job, search_in_workers, search_participant
 
 
@@ -85,8 +85,12 @@ def design_study(
     progress: Callable[[int, int, str], None] | None = None,
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Orderings and schedules for every participant (no files written).
+
+    progress(done, total, label) as participants start (one process) or end (workers); on_note(text)
+    for what happens after a stop (the participants not reached get their first valid design).
 
     With the spec's [objective] iterations above 0 (or search.iterations), each participant's
     design is searched for (seqsolve.search); otherwise it is the first valid ordering found.
@@ -102,14 +106,14 @@ def design_study(
             Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
         )
     else:
-        designs = _searched(study, options, search, progress, on_step)
+        designs = _searched(study, options, search, progress, on_step, on_note)
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
     return designs
 
 
-def _searched(study, options, search, progress, on_step) -> StudyDesigns:
+def _searched(study, options, search, progress, on_step, on_note=None) -> StudyDesigns:
     """Every participant's search, run on its own (in search.workers processes when above 1), then
     a pass in participant order that searches again, knowing the earlier participants' designs,
     for any design that repeats one of them (or breaks a participants-differ rule)."""
@@ -147,10 +151,16 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
                     raise KeyboardInterrupt
     except KeyboardInterrupt:
         out.interrupted = True
+    not_reached = [job for job in jobs if results.get(job.index) is None]
+    if out.interrupted and not_reached:
+        if on_note:
+            on_note(f"building first valid designs for the {len(not_reached)} participant(s) not reached")
+        if out.references is None:  # stopped before the yardstick was made: the table needs it
+            out.references = References.for_study(study, setup, reference_seed(study.spec.study.seed))
     for job in jobs:
         t0 = time.perf_counter()
         earlier = [d.runs for d in out]
-        args = (study, job.label, job.seed, method, earlier, options, t0)
+        args = (study, job.label, job.seed, method, earlier, options, t0, out, setup)
         result = results.get(job.index)
         if result is not None and result.stopped == "interrupted":
             out.interrupted = True
@@ -188,7 +198,7 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
             "depends on the machine, so a rerun may give other designs; a budget in iterations repeats exactly"
         )
     if out.interrupted:
-        missing = [d.label for d in out if d.figures is None]
+        missing = [d.label for d in out if (d.search or {}).get("stopped") == NOT_REACHED]
         out.notes.append(
             "search interrupted: each participant has the best design found before the stop"
             + (f"; participants {', '.join(missing)} got a valid design without search" if missing else "")
@@ -196,10 +206,19 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
     return out
 
 
-def _unsearched(study, label, seed, method, earlier, options, t0) -> Design:
-    """A valid design without search, for participants after the user's stop."""
+def _unsearched(study, label, seed, method, earlier, options, t0, designs: StudyDesigns, setup) -> Design:
+    """A valid design without search, for participants after the user's stop, with its figures (scored
+    as the searched ones, so the table and the manifest show them)."""
     runs = sample_orderings(study, seed, 1, earlier, options)[0]
-    return Design(label, seed, method, runs, make_schedules(study, runs, seed), time.perf_counter() - t0)
+    gaps = draw_gaps(study, runs, seed)
+    figures = Scorer(study, designs.weights, designs.references, seed, gaps, setup).figures(runs)
+    info = {"iterations": 0, "stopped": NOT_REACHED, "stopped_by": "the stop came before this participant's search"}
+    schedules = make_schedules(study, runs, seed, gaps)
+    return Design(label, seed, method, runs, schedules, time.perf_counter() - t0, figures, info, gaps)
+
+
+#: why an unsearched participant's design has no search (after a stop)
+NOT_REACHED = "not reached"
 
 
 #: rounds of rescue for participants below the spread floor
@@ -353,6 +372,7 @@ def generate(
     on_step: Callable[[Progress], None] | None = None,
     front: int = 0,
     onset_files: bool = False,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
 
@@ -368,7 +388,7 @@ def generate(
         When no valid ordering can be produced.
     """
     ensure_writable(outdir, force)
-    designs = design_study(study, options, progress, search, on_step)
+    designs = design_study(study, options, progress, search, on_step, on_note)
     points = None
     if front:
         from seqsolve.tradeoff import trade_off_front

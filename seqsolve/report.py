@@ -24,8 +24,8 @@ from seqsolve.rules._text import rule_line
 REPORT_NAME = "report.html"
 #: files the report reads from an output folder (the first is required)
 READS = ("manifest.json", "orderings.csv", "front.tsv", "compare.json")
-#: transition heat maps drawn (one per participant, first ones); the rest are summed into the last note
-MAX_HEAT_MAPS = 12
+#: transition heat maps shown (one per participant, the first ones); the caption says how many are left out
+MAX_HEAT_MAPS = 24
 
 STYLE = """
 body{font-family:system-ui,sans-serif;max-width:960px;margin:2em auto;padding:0 1em;color:#222}
@@ -36,6 +36,9 @@ tr.summary td{font-style:italic;background:#f6f6f6}
 img{max-width:100%;height:auto;display:block;margin:.5em 0}
 .caption,.note{font-size:13px;color:#555}
 code{background:#f3f3f3;padding:0 3px}
+.maps{display:flex;flex-wrap:wrap;gap:14px}
+table.heat td,table.heat th{border:1px solid #fff;padding:2px 6px;text-align:center;font-size:12px}
+table.heat caption{font-size:12px;color:#555}
 """
 
 
@@ -166,26 +169,26 @@ def transition_counts(runs: dict[int, list], names: list[str]) -> np.ndarray:
     return out
 
 
-def _heat_maps_png(counts: list[tuple[str, np.ndarray]], names: list[str]) -> bytes:
-    plt = pyplot()
-    n = len(counts)
-    cols = min(n, 4)
-    rows = (n + cols - 1) // cols
-    side = 1.0 + 0.45 * len(names)
-    fig, axes = plt.subplots(rows, cols, figsize=(side * cols, side * rows), squeeze=False)
-    top = max(int(c.max()) for _, c in counts) or 1
-    for ax, (label, c) in zip(axes.flat, counts):
-        im = ax.imshow(c, cmap="viridis", vmin=0, vmax=top)
-        ax.set_title(f"participant {label}", fontsize=8)
-        ax.set_xticks(range(len(names)), names, rotation=90, fontsize=6)
-        ax.set_yticks(range(len(names)), names, fontsize=6)
-        if len(names) <= 8:  # numbers stay legible only in small grids
-            for (i, j), v in np.ndenumerate(c):
-                ax.text(j, i, str(v), ha="center", va="center", fontsize=6, color="w" if v < 0.6 * top else "k")
-    for ax in list(axes.flat)[n:]:
-        ax.axis("off")
-    fig.colorbar(im, ax=axes.ravel().tolist(), shrink=0.6, label="count")
-    return png_bytes(fig)
+def _heat_colour(share: float) -> str:
+    """A cell's background: white (0) to dark blue (the largest count), as a CSS rgb()."""
+    low, high = np.array([255, 255, 255]), np.array([31, 78, 140])
+    r, g, b = (low + (high - low) * share).round().astype(int)
+    return f"rgb({r},{g},{b})"
+
+
+def _heat_map_table(label: str, counts: np.ndarray, names: list[str], top: int) -> str:
+    """One participant's transition counts as an HTML table whose cells are shaded by count (no picture
+    to load: exact numbers, and fast to build)."""
+    head = "".join(f"<th>{html.escape(n)}</th>" for n in names)
+    rows = []
+    for name, row in zip(names, counts):
+        cells = "".join(
+            f'<td style="background:{_heat_colour(v / top)};color:{"#fff" if v > 0.55 * top else "#222"}">{v}</td>'
+            for v in row
+        )
+        rows.append(f"<tr><th>{html.escape(name)}</th>{cells}</tr>")
+    caption = f"<caption>participant {html.escape(label)}</caption>"
+    return f"<table class=heat>{caption}<tr><th>then &rarr;</th>{head}</tr>{''.join(rows)}</table>"
 
 
 # ----------------------------------------------------------------------------------------------
@@ -274,7 +277,12 @@ def _plane_section(m: dict, files: Mapping[str, str | bytes]) -> str:
         front = _front_tsv(files["front.tsv"])  # this study's own front (generate --front) wins
         where += " and the front of front.tsv"
     if not scored and not clouds and not front:
-        return ""
+        return (
+            "<h2>Detection and estimation</h2><p class=note>No figures to show: the designs were not searched "
+            "(iterations 0). <code>seqsolve score SPEC orderings.csv</code> scores them; <code>seqsolve compare SPEC "
+            "--json &gt; FOLDER/compare.json</code> then <code>seqsolve report FOLDER --force</code> adds the families."
+            "</p>"
+        )
     clouds.append(
         Cloud(
             "participants",
@@ -320,14 +328,16 @@ def _transitions_section(m: dict, orderings: dict) -> str:
         return ""
     names = list(m["conditions"])
     shown = [(p["label"], transition_counts(orderings[p["label"]], names)) for p in m["participants"][:MAX_HEAT_MAPS]]
-    png = _heat_maps_png(shown, names)
+    top = max(int(c.max()) for _, c in shown) or 1
+    maps = "".join(_heat_map_table(label, c, names, top) for label, c in shown)
     more = len(m["participants"]) - len(shown)
     caption = (
-        "How often the column's condition directly follows the row's, within runs, summed over a participant's runs."
+        "How often the column's condition directly follows the row's, within runs, summed over a participant's "
+        f"runs; shading from 0 (white) to {top} (dark), the same in every table."
     )
     if more > 0:
         caption += f" The first {len(shown)} participants are shown; {more} more are in orderings.csv."
-    return f"<h2>Transitions</h2>{_img(png, 'transition counts')}<p class=caption>{html.escape(caption)}</p>"
+    return f"<h2>Transitions</h2><div class=maps>{maps}</div><p class=caption>{html.escape(caption)}</p>"
 
 
 def _robust_entries(obj, path: str = "") -> list[tuple[str, str]]:

@@ -211,11 +211,23 @@ def audit(
     ]
     report.rules.append(TIMING_RULE)
     report.violations.extend(timed)
-    complete = {label: runs for label, runs in designs.items() if all(r is not None for r in runs)}
-    if rank_samples and complete:
+    if rank_samples:
+        _rank(study, designs, report, rank_samples, on_sample)
+    return report
+
+
+def _rank(study: Study, designs: dict, report: AuditReport, n_samples: int, on_sample) -> None:
+    """Rank the designs that can be scored on the spec's timing: every run there, the declared counts,
+    onsets that follow [timing] (a rule may be broken: its rank still says how efficient it is)."""
+    off = {v.participant for v in report.violations if v.rule in (COUNT_RULE, TIMING_RULE)}
+    ranked = {label: runs for label, runs in designs.items() if label not in off and all(r is not None for r in runs)}
+    if ranked:
         from seqsolve.ranking import rank_designs  # the solver and the scores: only when asked
 
-        report.ranks = rank_designs(study, complete, rank_samples, on_sample)
-    if rank_samples and len(complete) < len(designs):
+        report.ranks = rank_designs(study, ranked, n_samples, on_sample)
+    if any(label in report.absent for label in designs):
         report.notes.append("participants with absent runs are not ranked: a score needs every run")
-    return report
+    if off:
+        report.notes.append(
+            f"participant(s) {', '.join(sorted(off))} not ranked: their trial counts or onsets differ from the spec"
+        )

@@ -19,6 +19,7 @@ from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, Solve
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
+from seqsolve.rules._text import rule_line
 from seqsolve.rules.participants_differ import ParticipantsDiffer
 from seqsolve.seeds import derive_seed  # noqa: F401  (part of this module's API)
 from seqsolve.spec import Study
@@ -55,6 +56,12 @@ class Explanation:
     minimal: bool  # True: dropping any one of the listed rules makes the rest possible
     rules: list[tuple[int, str, str]] = field(default_factory=list)  # (index, source, sentence)
     note: str = ""
+    labels: dict[int, str] = field(default_factory=dict)  # rule index: its label, where the spec gives one
+
+    def named(self, study: Study) -> Explanation:
+        """The same, with the study's rule labels (shown as `check` shows them); returns self."""
+        self.labels = {i: r.label for i, r in enumerate(study.rules) if r.label}
+        return self
 
     def describe(self) -> str:
         if not self.proven:
@@ -66,7 +73,7 @@ class Explanation:
             if self.minimal
             else f"these rules cannot all hold together (smallest set found; {self.note}):"
         )
-        return "\n".join([head] + [f"  - {src}: {sentence}" for _, src, sentence in self.rules])
+        return "\n".join([head] + [f"  - {rule_line(src, self.labels.get(i), text)}" for i, src, text in self.rules])
 
 
 def counts_expressible(study: Study) -> list[bool]:
@@ -103,7 +110,7 @@ def generate_orderings(
     options = options or SolveOptions()
     counted = counting_conflict(study)
     if counted is not None:  # proven by counting: no need to wait for the solver's proof
-        raise InfeasibleError(counted)
+        raise InfeasibleError(counted.named(study))
     method = choose_method(study, options)
     solver_for = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
     differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
@@ -340,7 +347,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     earlier = earlier or []
     counted = counting_conflict(study)
     if counted is not None:
-        return counted
+        return counted.named(study)
     method = "positions" if earlier else choose_method(study, options)
     if method == "counts":
         path = _CountsPath(study, options)
@@ -394,7 +401,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
         for i, src, text in rules
     ]
     note = "" if minimal else "time ran out before every rule in it was shown to be needed"
-    return Explanation(True, minimal, rules, note)
+    return Explanation(True, minimal, rules, note).named(study)
 
 
 def _counts_buildable(path: _CountsPath, solver) -> bool:

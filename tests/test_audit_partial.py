@@ -206,3 +206,25 @@ def test_singular_sentences():
     sentences = [r.sentence(study.facts) for r in study.rules]
     assert sentences[0] == "no more than 1 trial of any one condition in a row"
     assert sentences[1] == "at least 1 trial between two trials of 'a'"
+
+
+def test_a_design_with_other_counts_is_not_ranked_and_says_why(made, tmp_path):
+    """A run with one trial more than the spec's cannot be scored on the spec's timing: no rank, a note."""
+    study, _, rows = made
+    one = _runs(rows, "01", {1, 2, 3, 4}) + _runs(rows, "02", {1, 2, 3, 4})
+    extra = dict(one[-1], position=str(int(one[-1]["position"]) + 1))
+    report = audit(study, [_write(tmp_path / "more.csv", one + [extra])], rank_samples=5)
+    assert [r.participant for r in report.ranks] == ["01"]
+    assert any("02 not ranked" in n for n in report.notes)
+
+
+def test_an_impossible_rule_is_named_by_its_label(tmp_path):
+    spec = tmp_path / "c.toml"
+    spec.write_text(
+        '[study]\nname = "c"\ntask = "c"\nparticipants = 1\n[[conditions]]\nname = "a"\ntrials = 10\n'
+        '[[conditions]]\nname = "b"\ntrials = 2\n[timing]\ntr = 2.0\nsoa = 2.0\n'
+        '[[rules]]\nkind = "max-run"\nlength = 2\nlabel = "shortRuns"\n'
+    )
+    result = CliRunner().invoke(app, ["check", str(spec)])
+    assert result.exit_code == 1
+    assert "  - shortRuns (rules[1]): no more than 2 trials of any one condition in a row" in result.output

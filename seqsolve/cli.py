@@ -378,9 +378,10 @@ def audit(
             min=0,
             max=100_000,
             help="Rank each design among this many valid designs sampled under the same rules (seeded by the "
-            "spec's seed; 0: no ranking, no solver).",
+            "spec's seed; about a second for 50 where the counts model applies, up to a minute otherwise; 0: no "
+            "ranking, no solver).",
         ),
-    ] = 100,
+    ] = 50,
 ) -> None:
     """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
 
@@ -416,8 +417,8 @@ def _audit_json(report) -> dict:
 
 def _print_audit(study, report) -> None:
     typer.echo(
-        f"checked {len(report.participants)} participant(s) against the {len(study.rules)} rule(s) that "
-        "`seqsolve check` lists, the spec's trial counts and its timing"
+        f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
+        "its trial counts and its timing"
     )
     for label, runs in report.absent.items():
         typer.echo(f"  participant {label}: run(s) {', '.join(map(str, runs))} not in the files; the others checked")

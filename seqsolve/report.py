@@ -302,11 +302,11 @@ def _plane_section(m: dict, files: Mapping[str, str | bytes]) -> str:
 
 
 def _design_matrix_section(m: dict, orderings: dict) -> str:
-    if not orderings:
-        return ""
     first = m["participants"][0]
     label = first["label"]
-    runs = orderings[label]
+    runs = orderings.get(label)
+    if not runs or len(runs) != len(first["runs"]):  # orderings.csv edited by hand: nothing sure to draw
+        return ""
     volumes = [r["volumes"] for r in first["runs"]]
     tr = float(m.get("timing", {}).get("tr") or first["runs"][0]["seconds"] / volumes[0])
     modelled = [c for c in m["conditions"] if c != m.get("baseline")]
@@ -324,13 +324,16 @@ def _design_matrix_section(m: dict, orderings: dict) -> str:
 
 
 def _transitions_section(m: dict, orderings: dict) -> str:
-    if not orderings:
-        return ""
     names = list(m["conditions"])
-    shown = [(p["label"], transition_counts(orderings[p["label"]], names)) for p in m["participants"][:MAX_HEAT_MAPS]]
+    listed = [p["label"] for p in m["participants"] if p["label"] in orderings]
+    if not listed or any(
+        c not in names for runs in orderings.values() for trials in runs.values() for c, _, _ in trials
+    ):
+        return ""
+    shown = [(label, transition_counts(orderings[label], names)) for label in listed[:MAX_HEAT_MAPS]]
     top = max(int(c.max()) for _, c in shown) or 1
     maps = "".join(_heat_map_table(label, c, names, top) for label, c in shown)
-    more = len(m["participants"]) - len(shown)
+    more = len(listed) - len(shown)
     caption = (
         "How often the column's condition directly follows the row's, within runs, summed over a participant's "
         f"runs; shading from 0 (white) to {top} (dark), the same in every table."

@@ -192,7 +192,7 @@ def test_audit_header_counts_the_rules_check_lists(made, tmp_path):
         app, ["audit", str(root / "spec.toml"), str(root / "designs" / "orderings.csv"), "--rank", "5"]
     )
     listed = len([line for line in check.output.splitlines() if line.strip().startswith("- ")])
-    said = int(re.search(r"against the (\d+) rule\(s\)", audited.output).group(1))
+    said = int(re.search(r"against the spec's (\d+) rule\(s\)", audited.output).group(1))
     assert listed == said == 3
     assert "rank among 5 valid designs" in audited.output
 

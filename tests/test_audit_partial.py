@@ -228,3 +228,13 @@ def test_an_impossible_rule_is_named_by_its_label(tmp_path):
     result = CliRunner().invoke(app, ["check", str(spec)])
     assert result.exit_code == 1
     assert "  - shortRuns (rules[1]): no more than 2 trials of any one condition in a row" in result.output
+
+
+def test_audit_json_keeps_progress_off_stdout(made):
+    _, root, _ = made
+    args = ["audit", str(root / "spec.toml"), str(root / "designs" / "orderings.csv"), "--rank", "3", "--json"]
+    result = CliRunner().invoke(app, args)
+    report = json.loads(result.stdout)  # progress lines went to stderr
+    assert report["valid"] and [r["participant"] for r in report["ranks"]] == ["01", "02"]
+    assert all(r["samples"] == 3 and 0 <= r["percentile"] <= 100 for r in report["ranks"])
+    assert "ranking: valid design 3 of 3" in result.stderr

@@ -152,6 +152,7 @@ def _searched(study, options, search, progress, on_step, on_note=None) -> StudyD
     except KeyboardInterrupt:
         out.interrupted = True
     not_reached = [job for job in jobs if results.get(job.index) is None]
+    scorers: dict = {}  # the not-reached participants' scorer, shared where the timing is fixed
     if out.interrupted and not_reached:
         if on_note:
             on_note(f"building first valid designs for the {len(not_reached)} participant(s) not reached")
@@ -160,7 +161,7 @@ def _searched(study, options, search, progress, on_step, on_note=None) -> StudyD
     for job in jobs:
         t0 = time.perf_counter()
         earlier = [d.runs for d in out]
-        args = (study, job.label, job.seed, method, earlier, options, t0, out, setup)
+        args = (study, job.label, job.seed, method, earlier, options, t0, out, setup, scorers)
         result = results.get(job.index)
         if result is not None and result.stopped == "interrupted":
             out.interrupted = True
@@ -206,12 +207,16 @@ def _searched(study, options, search, progress, on_step, on_note=None) -> StudyD
     return out
 
 
-def _unsearched(study, label, seed, method, earlier, options, t0, designs: StudyDesigns, setup) -> Design:
+def _unsearched(study, label, seed, method, earlier, options, t0, designs: StudyDesigns, setup, scorers) -> Design:
     """A valid design without search, for participants after the user's stop, with its figures (scored
-    as the searched ones, so the table and the manifest show them)."""
+    as the searched ones, so the table and the manifest show them). scorers: {seed or None: Scorer},
+    one for all under a fixed soa (its evaluator is then built once, not once per participant)."""
     runs = sample_orderings(study, seed, 1, earlier, options)[0]
     gaps = draw_gaps(study, runs, seed)
-    figures = Scorer(study, designs.weights, designs.references, seed, gaps, setup).figures(runs)
+    key = None if gaps is None else seed
+    if key not in scorers:
+        scorers[key] = Scorer(study, designs.weights, designs.references, seed, gaps, setup)
+    figures = scorers[key].figures(runs)
     info = {"iterations": 0, "stopped": NOT_REACHED, "stopped_by": "the stop came before this participant's search"}
     schedules = make_schedules(study, runs, seed, gaps)
     return Design(label, seed, method, runs, schedules, time.perf_counter() - t0, figures, info, gaps)

@@ -241,7 +241,31 @@ def _participants_section(m: dict) -> str:
     if obj.get("spread") is not None:
         text += f"; spread across participants {100 * obj['spread']:.1f}% (1 - lowest score / highest)"
     notes = "".join(f"<p class=note>note: {html.escape(n)}</p>" for n in obj.get("notes", []))
-    return f"<h2>Participants</h2>{body}<p class=caption>{html.escape(text)}</p>{notes}"
+    return f"<h2>Participants</h2>{body}<p class=caption>{html.escape(text)}</p>{notes}{_per_run(m)}"
+
+
+def _per_run(m: dict) -> str:
+    """The manifest's figures per run, as `seqsolve score` prints them, folded away."""
+    head = ["participant", "run", "detection", "estimation", "cb max", "H bits"]
+    rows = [
+        [
+            p["label"],
+            run,
+            f"{f['detection']:.4g}",
+            f"{f['estimation']:.4g}",
+            f"{f['counterbalance_max']:.2f}",
+            f"{f['entropy_bits']:.2f}",
+        ]
+        for p in m["participants"]
+        for run, f in (p.get("metrics") or {}).items()
+    ]
+    if not rows:
+        return ""
+    note = (
+        "Per run and for all runs together: detection and estimation efficiencies of the [analysis] model (noise in "
+        "units of the AR(1) innovation variance), the largest deviation from ideal pair counts, next-trial entropy."
+    )
+    return f"<details><summary>figures per run</summary>{_html_table(head, rows)}<p class=caption>{note}</p></details>"
 
 
 def _html_table(head: list[str], rows: list[list[str]], summary: list[list[str]] = ()) -> str:

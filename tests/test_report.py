@@ -116,6 +116,8 @@ def test_participants_figures_in_the_tables_units(folder):
         s = p["score"]
         assert f"{100 * s['detection_vs_block']:.1f}%" in page and f"{s['estimation_vs_random']:.3f}x" in page
     assert "spread across participants" in page and "lowest" in page
+    run1 = manifest["participants"][0]["metrics"]["1"]
+    assert f"<td>{run1['detection']:.4g}</td><td>{run1['estimation']:.4g}</td>" in page  # folded per-run table
 
 
 def test_design_matrix_matches_nilearn(folder):

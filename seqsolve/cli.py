@@ -124,14 +124,56 @@ def _progress(started: float):
     return show
 
 
+class _Countdown:
+    """'<what> k of N, elapsed, about T s left' on stderr: rewritten in place on a terminal, else a line
+    every few seconds (and the first and last), so long runs are never silent and logs stay short."""
+
+    def __init__(self, what: str, every: float = 5.0):
+        self.what, self.every, self.tty = what, every, sys.stderr.isatty()
+        self.started = time.perf_counter()
+        self.last = -1e9
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.perf_counter()
+        if done not in (1, total) and now - self.last < (0.2 if self.tty else self.every):
+            return
+        self.last = now
+        spent = now - self.started
+        left = spent / done * (total - done) if done else 0.0
+        line = f"  {self.what} {done} of {total}, {spent:.1f} s" + (
+            f", about {left:.0f} s left" if done < total else ""
+        )
+        if self.tty:
+            typer.echo("\r" + line.ljust(80), err=True, nl=done >= total)
+        else:
+            typer.echo(line, err=True)
+
+
 class _StepDisplay:
     """One status line on stderr during the search: rewritten in place on a terminal, else a line
     every few seconds (so logs stay short)."""
 
-    def __init__(self):
+    def __init__(self, participants: tuple[str, ...] = ()):
         self.tty = sys.stderr.isatty()
         self.last = 0.0
         self.timed = True  # False for a spec without timing.tr: counterbalance is then the only figure
+        self.order = {label: i for i, label in enumerate(participants)}  # "participant k of P" for these
+        self.done, self.started = 0, time.perf_counter()
+
+    def participants_done(self, done: int, total: int, label: str) -> None:
+        """generate's progress: `done` participants finished (their time gives the estimate of what is left)."""
+        self.done = done
+
+    def _whose(self, label: str) -> str:
+        """'participant 2 of 6 (02), about 40 s left' for a study's participant; the label alone otherwise."""
+        if label not in self.order:
+            return label
+        total = len(self.order)
+        text = f"participant {self.order[label] + 1} of {total} ({label})"
+        if self.done:
+            spent = time.perf_counter() - self.started
+            text += f", about {max(0.0, spent / self.done * (total - self.done)):.0f} s left in all"
+        return text
 
     def __call__(self, p) -> None:
         now = time.perf_counter()
@@ -150,9 +192,9 @@ class _StepDisplay:
             )
         )
         of = "" if p.iterations >= 10**12 else f"/{p.iterations}"  # a search to a budget has no round count
-        line = f"  {p.participant}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
+        line = f"  {self._whose(p.participant)}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
         if self.tty:
-            typer.echo("\r" + line.ljust(100)[:100], err=True, nl=False)
+            typer.echo("\r" + line.ljust(140)[:140], err=True, nl=False)
         else:
             typer.echo(line, err=True)
 
@@ -228,6 +270,7 @@ def generate(
     display = _StepDisplay()
     with _guarded(spec, display):
         study = load_study(spec, seed=seed)
+        display = _StepDisplay(study.participants)
         display.timed = study.spec.timing.tr is not None
         steps = study.spec.objective.iterations if iterations is None else iterations
         if budget is not None and iterations is None:
@@ -247,11 +290,12 @@ def generate(
             out,
             force=force,
             options=solve,
-            progress=None if (steps or budget is not None) else _progress(started),
+            progress=display.participants_done if (steps or budget is not None) else _progress(started),
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
             onset_files=onset_files,
+            on_note=lambda text: (display.end_line(), typer.echo(f"  {text} ...", err=True)),
         )
         display.end_line()
         _report_designs(designs, study, out, started)
@@ -280,7 +324,8 @@ def _report_designs(designs, study, out: Path, started: float) -> None:
     extra += f", {out}/onsets/" if (out / "onsets").exists() else ""
     typer.echo(
         f"  a BIDS dataset skeleton: {out}/dataset_description.json, {out}/sub-*/...events.tsv; "
-        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}"
+        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}; "
+        f"to read and share: {out}/report.html"
     )
 
 
@@ -301,6 +346,8 @@ def _designs_table(designs, timed: bool = True) -> str:
         if f is None:
             rows.append([d.label, "-", "-", "-", "-", "0", "not searched"])
             continue
+        stopped = info.get("stopped", "")
+        stopped = "not reached (first valid design)" if stopped == "not reached" else stopped
         rows.append(
             [
                 d.label,
@@ -309,7 +356,7 @@ def _designs_table(designs, timed: bool = True) -> str:
                 f"{f.estimation_vs_random:.3f}x" if timed else "-",
                 f"{f.counterbalance:.3f}",
                 str(info.get("iterations", 0)),
-                info.get("stopped", "") + (" (rescued)" if "rescued_from" in info else ""),
+                stopped + (" (rescued)" if "rescued_from" in info else ""),
             ]
         )
     text = _table(head, rows)
@@ -337,9 +384,23 @@ def audit(
         ),
     ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
+    rank: Annotated[
+        int,
+        typer.Option(
+            min=0,
+            max=100_000,
+            help="Rank each design among this many valid designs sampled under the same rules (seeded by the "
+            "spec's seed; about a second for 50 where the counts model applies, up to a minute otherwise; 0: no "
+            "ranking, no solver).",
+        ),
+    ] = 50,
 ) -> None:
     """Check existing orderings against the spec's rules, and a study's counterbalanced assignment
     against its [[counterbalance]] sections (exit 0 valid, 1 violations, 2 bad input).
+
+    Files may hold some of the runs only (e.g. one run of four): the runs present are checked and the
+    absent ones named. Each complete design is also ranked: the percent of valid designs, sampled under
+    the same rules, that score at or below it on the spec's [objective].
 
     Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
     """
@@ -348,24 +409,41 @@ def audit(
 
     with _guarded(spec):
         study = load_study(spec)
-        report = run_audit(study, files)
+        report = run_audit(study, files, rank, _Countdown("ranking: valid design"))
     if as_json:
-        typer.echo(
-            json.dumps(
-                {
-                    "valid": report.valid,
-                    "participants": report.participants,
-                    "violations": [v.__dict__ for v in report.violations],
-                },
-                indent=2,
-            )
-        )
+        typer.echo(json.dumps(_audit_json(report), indent=2))
     else:
-        typer.echo(_audit_scope(study, report))
-        for v in report.violations:
-            typer.echo(f"  {v.describe()}")
-        typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
+        _print_audit(study, report)
     raise typer.Exit(0 if report.valid else 1)
+
+
+def _audit_json(report) -> dict:
+    return {
+        "valid": report.valid,
+        "participants": report.participants,
+        "absent_runs": report.absent,
+        "violations": [v.__dict__ for v in report.violations],
+        "ranks": [r.__dict__ for r in report.ranks],
+        "notes": report.notes,
+    }
+
+
+def _print_audit(study, report) -> None:
+    typer.echo(_audit_scope(study, report))
+    for label, runs in report.absent.items():
+        typer.echo(f"  participant {label}: run(s) {', '.join(map(str, runs))} not in the files; the others checked")
+    for v in report.violations:
+        typer.echo(f"  {v.describe()}")
+    for note in report.notes:
+        typer.echo(f"note: {note}")
+    if report.ranks:
+        n = report.ranks[0].samples
+        typer.echo(f"rank among {n} valid designs sampled under the same rules (score as generate steers by it):")
+        for r in report.ranks:
+            typer.echo(
+                f"  participant {r.participant}: score {r.score:.4f}, above or equal to {r.percentile:.0f}% of them"
+            )
+    typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
 
 
 def _audit_scope(study, report) -> str:
@@ -393,6 +471,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
 
     Example: seqsolve check examples/reward_cue.toml
     """
+    from seqsolve.rules._text import rule_line
     from seqsolve.solve import SolveOptions, check_study
     from seqsolve.spec import load_study
 
@@ -406,7 +485,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
             f"({result.method} model, {result.seconds:.2f} s):"
         )
         for r, src in zip(study.rules, study.rule_sources):
-            typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+            typer.echo(f"  - {rule_line(src, r.label, r.sentence(study.facts))}")
         _echo_counterbalance(study)
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())
@@ -554,7 +633,8 @@ def compare(
         if plot is not None:
             check_plot_path(plot, force)
         study = load_study(spec)
-        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display)
+        countdown = _Countdown("random valid designs: sample")
+        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display, countdown)
         display.end_line()
         if plot is not None:
             draw(result, plot, study.spec.study.name)
@@ -590,7 +670,7 @@ def compare(
     head = ["family", "designs", "best detection", "mean detection", "best estimation", "mean estimation"]
     typer.echo(_table(head, rows))
     for r in result.summary():
-        typer.echo(f"  {r['family']}: {r['note']}")
+        typer.echo(f"  {r['family']}: " + (f"{r['absent']}: " if r["absent"] else "") + r["note"])
     ref = result.references
     typer.echo(
         f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "
@@ -598,6 +678,26 @@ def compare(
     )
     if plot is not None:
         typer.echo(f"wrote {plot}")
+
+
+@app.command()
+def report(
+    folder: Annotated[Path, typer.Argument(help="An output folder written by generate.", show_default=False)],
+    force: Annotated[bool, typer.Option(help="Replace an existing report.html.")] = False,
+) -> None:
+    """(Re)build FOLDER/report.html: one self-contained HTML page (pictures inline, no network) of the rules,
+    each participant's figures, a design matrix, transition counts and the detection/estimation plane.
+
+    It reads only the folder: manifest.json, orderings.csv, front.tsv (generate --front) and compare.json
+    (`seqsolve compare SPEC --json > FOLDER/compare.json`) where present.
+
+    Example: seqsolve report designs/ --force
+    """
+    from seqsolve.report import write_report
+
+    with _guarded(None):
+        path = write_report(folder, force)
+    typer.echo(f"wrote {path}")
 
 
 @app.command()

@@ -33,7 +33,7 @@ from seqsolve.solve import (
     sample_orderings,
 )
 from seqsolve.spec import Study
-from seqsolve.timing import RunSchedule, make_schedules
+from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
 from seqsolve.workers import Job, search_in_workers, search_participant
 
 
@@ -86,8 +86,12 @@ def design_study(
     progress: Callable[[int, int, str], None] | None = None,
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Orderings and schedules for every participant (no files written).
+
+    progress(done, total, label) as participants start (one process) or end (workers); on_note(text)
+    for what happens after a stop (the participants not reached get their first valid design).
 
     With the spec's [objective] iterations above 0 (or search.iterations), each participant's
     design is searched for (seqsolve.search); otherwise it is the first valid ordering found.
@@ -103,14 +107,14 @@ def design_study(
             Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
         )
     else:
-        designs = _searched(study, options, search, progress, on_step)
+        designs = _searched(study, options, search, progress, on_step, on_note)
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
     return designs
 
 
-def _searched(study, options, search, progress, on_step) -> StudyDesigns:
+def _searched(study, options, search, progress, on_step, on_note=None) -> StudyDesigns:
     """Every participant's search, run on its own (in search.workers processes when above 1), then
     a pass in participant order that searches again, knowing the earlier participants' designs,
     for any design that repeats one of them (or breaks a participants-differ rule)."""
@@ -148,10 +152,17 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
                     raise KeyboardInterrupt
     except KeyboardInterrupt:
         out.interrupted = True
+    not_reached = [job for job in jobs if results.get(job.index) is None]
+    scorers: dict = {}  # the not-reached participants' scorer, shared where the timing is fixed
+    if out.interrupted and not_reached:
+        if on_note:
+            on_note(f"building first valid designs for the {len(not_reached)} participant(s) not reached")
+        if out.references is None:  # stopped before the yardstick was made: the table needs it
+            out.references = References.for_study(study, setup, reference_seed(study.spec.study.seed))
     for job in jobs:
         t0 = time.perf_counter()
         earlier = [d.runs for d in out]
-        args = (study, job.label, job.seed, method, earlier, options, t0)
+        args = (study, job.label, job.seed, method, earlier, options, t0, out, setup, scorers)
         result = results.get(job.index)
         if result is not None and result.stopped == "interrupted":
             out.interrupted = True
@@ -189,7 +200,7 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
             "depends on the machine, so a rerun may give other designs; a budget in iterations repeats exactly"
         )
     if out.interrupted:
-        missing = [d.label for d in out if d.figures is None]
+        missing = [d.label for d in out if (d.search or {}).get("stopped") == NOT_REACHED]
         out.notes.append(
             "search interrupted: each participant has the best design found before the stop"
             + (f"; participants {', '.join(missing)} got a valid design without search" if missing else "")
@@ -197,10 +208,23 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
     return out
 
 
-def _unsearched(study, label, seed, method, earlier, options, t0) -> Design:
-    """A valid design without search, for participants after the user's stop."""
+def _unsearched(study, label, seed, method, earlier, options, t0, designs: StudyDesigns, setup, scorers) -> Design:
+    """A valid design without search, for participants after the user's stop, with its figures (scored
+    as the searched ones, so the table and the manifest show them). scorers: {seed or None: Scorer},
+    one for all under a fixed soa (its evaluator is then built once, not once per participant)."""
     runs = sample_orderings(study, seed, 1, earlier, options)[0]
-    return Design(label, seed, method, runs, make_schedules(study, runs, seed), time.perf_counter() - t0)
+    gaps = draw_gaps(study, runs, seed)
+    key = None if gaps is None else seed
+    if key not in scorers:
+        scorers[key] = Scorer(study, designs.weights, designs.references, seed, gaps, setup)
+    figures = scorers[key].figures(runs)
+    info = {"iterations": 0, "stopped": NOT_REACHED, "stopped_by": "the stop came before this participant's search"}
+    schedules = make_schedules(study, runs, seed, gaps)
+    return Design(label, seed, method, runs, schedules, time.perf_counter() - t0, figures, info, gaps)
+
+
+#: why an unsearched participant's design has no search (after a stop)
+NOT_REACHED = "not reached"
 
 
 #: rounds of rescue for participants below the spread floor
@@ -301,16 +325,18 @@ def _score_entry(study: Study, d: Design) -> dict:
 def manifest(study: Study, designs: list[Design]) -> dict:
     """What made these outputs: versions, spec hash, seeds, rule summary per participant."""
     rules = [
-        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind} for r, s in zip(study.rules, study.rule_sources)
+        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind, "label": r.label}
+        for r, s in zip(study.rules, study.rule_sources)
     ]
     return {
         "tool": "seqsolve",
         "versions": versions(),
-        "spec": {"file": Path(study.source).name, "hash": study.spec_hash},
+        "spec": {"file": Path(study.source).name, "hash": study.spec_hash, "study": study.spec.study.name},
         "seed": study.spec.study.seed,
         "conditions": {n: int(c) for n, c in zip(study.names, study.facts.counts[0])},
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
+        "timing": study.spec.timing.model_dump(mode="json"),
         "analysis": study.spec.analysis.model_dump(mode="json"),
         "objective": _objective_summary(study, designs),
         "participants": [
@@ -359,8 +385,8 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
 def output_files(
     study: Study, designs: list[Design], front: list | None = None, onset_files: bool = False
 ) -> dict[str, str | bytes]:
-    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files);
-    onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
+    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files,
+    report.html among them); onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
     cb = assign_study(study)
     index = {label: i for i, label in enumerate(study.participants)}
     columns = {a.section.name: [a.text_of(index[d.label]) for d in designs] for a in cb}
@@ -379,6 +405,9 @@ def output_files(
 
         files["front.tsv"] = front_tsv(study, front)
     files["manifest.json"] = json.dumps(manifest(study, designs), indent=2) + "\n"
+    from seqsolve.report import REPORT_NAME, report_html  # matplotlib comes in only here
+
+    files[REPORT_NAME] = report_html(files)  # from the folder's own files, as `seqsolve report` rebuilds it
     return files
 
 
@@ -393,6 +422,7 @@ def generate(
     on_step: Callable[[Progress], None] | None = None,
     front: int = 0,
     onset_files: bool = False,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
 
@@ -412,7 +442,7 @@ def generate(
             study.source, [Problem("timing.tr", f"--front trades detection against estimation; {NO_TR_MESSAGE}")]
         )
     ensure_writable(outdir, force)
-    designs = design_study(study, options, progress, search, on_step)
+    designs = design_study(study, options, progress, search, on_step, on_note)
     points = None
     if front:
         from seqsolve.tradeoff import trade_off_front

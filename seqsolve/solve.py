@@ -19,6 +19,7 @@ from seqsolve.errors import InfeasibleError, InternalError, NotFoundError, Solve
 from seqsolve.flow import Disconnected, FlowModel
 from seqsolve.model import OrderingModel
 from seqsolve.rules import Rule
+from seqsolve.rules._text import rule_line
 from seqsolve.rules.participants_differ import ParticipantsDiffer
 from seqsolve.seeds import derive_seed  # noqa: F401  (part of this module's API)
 from seqsolve.spec import Study
@@ -55,6 +56,12 @@ class Explanation:
     minimal: bool  # True: dropping any one of the listed rules makes the rest possible
     rules: list[tuple[int, str, str]] = field(default_factory=list)  # (index, source, sentence)
     note: str = ""
+    labels: dict[int, str] = field(default_factory=dict)  # rule index: its label, where the spec gives one
+
+    def named(self, study: Study) -> Explanation:
+        """The same, with the study's rule labels (shown as `check` shows them); returns self."""
+        self.labels = {i: r.label for i, r in enumerate(study.rules) if r.label}
+        return self
 
     def describe(self) -> str:
         if not self.proven:
@@ -66,7 +73,7 @@ class Explanation:
             if self.minimal
             else f"these rules cannot all hold together (smallest set found; {self.note}):"
         )
-        return "\n".join([head] + [f"  - {src}: {sentence}" for _, src, sentence in self.rules])
+        return "\n".join([head] + [f"  - {rule_line(src, self.labels.get(i), text)}" for i, src, text in self.rules])
 
 
 def counts_expressible(study: Study) -> list[bool]:
@@ -103,7 +110,7 @@ def generate_orderings(
     options = options or SolveOptions()
     counted = counting_conflict(study)
     if counted is not None:  # proven by counting: no need to wait for the solver's proof
-        raise InfeasibleError(counted)
+        raise InfeasibleError(counted.named(study))
     method = choose_method(study, options)
     solver_for = _CountsPath(study, options) if method == "counts" else _PositionsPath(study, options)
     differ = [r for r in study.rules if isinstance(r, ParticipantsDiffer)]
@@ -131,11 +138,13 @@ def sample_orderings(
     n: int,
     earlier: list[list[np.ndarray]] | None = None,
     options: SolveOptions | None = None,
+    on_sample: Callable[[int, int], None] | None = None,
 ) -> list[list[np.ndarray]]:
     """n valid designs for one participant, each from its own seed (duplicates dropped).
 
-    Used as diverse starting points by the search and as the random valid sample of compare.
+    Used as diverse starting points by the search and as the random valid sample of compare and audit.
     Each design passes every rule's check and clashes with none of the earlier participants.
+    on_sample(k, n) is called after the k-th solve (for progress lines).
     """
     options = options or SolveOptions()
     earlier = earlier or []
@@ -152,6 +161,8 @@ def sample_orderings(
         if key not in seen:
             seen.add(key)
             out.append(runs)
+        if on_sample is not None:
+            on_sample(i + 1, n)
     return out
 
 
@@ -375,7 +386,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
     earlier = earlier or []
     counted = counting_conflict(study)
     if counted is not None:
-        return counted
+        return counted.named(study)
     method = "positions" if earlier else choose_method(study, options)
     if method == "counts":
         path = _CountsPath(study, options)
@@ -429,7 +440,7 @@ def explain(study: Study, options: SolveOptions | None = None, earlier: list | N
         for i, src, text in rules
     ]
     note = "" if minimal else "time ran out before every rule in it was shown to be needed"
-    return Explanation(True, minimal, rules, note)
+    return Explanation(True, minimal, rules, note).named(study)
 
 
 def _counts_buildable(path: _CountsPath, solver) -> bool:

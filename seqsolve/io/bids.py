@@ -13,7 +13,7 @@ from seqsolve.spec import Study
 BIDS_VERSION = "1.10.0"
 
 #: seqsolve's own files and folders in the output, which are not BIDS (gitignore-style patterns)
-OWN_FILES = ("orderings.csv", "manifest.json", "front.tsv", "stimulus/", "onsets/")
+OWN_FILES = ("orderings.csv", "manifest.json", "front.tsv", "report.html", "compare.json", "stimulus/", "onsets/")
 
 
 def subject_id(label: str) -> str:

@@ -83,8 +83,13 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
     return {label: [codes for codes, _ in runs] for label, runs in read_designs(study, paths).items()}
 
 
-def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
-    """Like read_orderings, with each run's onsets in seconds where the files give every one (else None)."""
+def read_designs(
+    study: Study, paths: list[str | Path], partial: bool = False
+) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
+    """Like read_orderings, with each run's onsets in seconds where the files give every one (else None).
+
+    partial: a participant may have only some of the spec's runs; each absent run is None in the list
+    (which still has one entry per declared run)."""
     paths = [Path(p) for p in paths]
     trials = _Trials()
     for f, path in enumerate(paths):
@@ -97,7 +102,7 @@ def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[
                 trials.add(label, run, pos, code, onset, f, 0)
         else:
             _read_csv(study, path, f, trials)
-    return trials.designs(study, paths)
+    return trials.designs(study, paths, partial)
 
 
 class _Trials:
@@ -128,8 +133,11 @@ class _Trials:
         col = {k: np.frombuffer(self.ints[k], dtype=np.int64) for k in ("label", "run")}
         return bool(np.any((col["label"] == self.labels[label]) & (col["run"] == run)))
 
-    def designs(self, study: Study, paths: list[Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
-        """Runs per participant in position order; a repeated or missing position or run raises."""
+    def designs(
+        self, study: Study, paths: list[Path], partial: bool = False
+    ) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
+        """Runs per participant in position order; a repeated or missing position or run raises (a missing
+        run is None instead when partial)."""
         col = {k: np.frombuffer(v, dtype=np.int64) if len(v) else np.zeros(0, np.int64) for k, v in self.ints.items()}
         onset = np.frombuffer(self.onset, dtype=float) if len(self.onset) else np.zeros(0)
         order = np.lexsort((col["file"], col["line"], col["pos"], col["run"], col["label"]))
@@ -163,6 +171,9 @@ class _Trials:
             )
         out = {}
         for index, runs in blocks.items():
+            if partial:
+                out[names[index]] = [runs.get(r) for r in range(1, study.facts.n_runs + 1)]
+                continue
             if sorted(runs) != list(range(1, study.facts.n_runs + 1)):
                 raise OrderingFileError(
                     where,

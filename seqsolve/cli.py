@@ -553,7 +553,8 @@ def compare(
         typer.echo(f"  {r['family']}: {r['note']}")
     ref = result.references
     typer.echo(
-        f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "
+        f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, baseline "
+        f"{ref.block_placement}, rules or not); "
         "estimation as a multiple of the mean random ordering's; same counts and timing."
     )
     if plot is not None:

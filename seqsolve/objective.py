@@ -69,11 +69,12 @@ class References:
     block_detection: float
     block_size: int
     random_estimation: float
+    block_placement: str = "after each"  # seqsolve.blocks.PLACEMENTS
 
     @classmethod
     def for_study(cls, study: Study, setup: AnalysisSetup, seed: int) -> References:
         ref = references(study, setup, list(range(study.facts.n_runs)), seed)
-        return cls(ref["block_detection"], int(ref["block_size"]), ref["random_estimation"])
+        return cls(ref["block_detection"], int(ref["block_size"]), ref["random_estimation"], ref["block_placement"])
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)

@@ -6,6 +6,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from seqsolve.blocks import block_family
 from seqsolve.efficiency.fast import DirectScorer, Evaluator, batch_efficiency
 from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.limits import estimation_bound_identity
@@ -27,8 +28,9 @@ class ScoreRow:
     q) or det(C M^-1 C')^(-1/q) (D), with M the information of the prewhitened model; noise is in
     units of the AR(1) innovation variance (the white-noise variance when ar1 = 0), so the figures
     are in 1/variance units of the response estimate, per unit innovation variance.
-    references: the values the shares divide by: block_detection (best block design's detection)
-    and block_size (its block, in trials), random_estimation (mean over random_orderings shuffled
+    references: the values the shares divide by: block_detection (best block design's detection,
+    seqsolve.blocks) with block_size (its block, in trials) and block_placement (where its baseline
+    goes), random_estimation (mean over random_orderings shuffled
     orderings drawn with numpy's default_rng seeded by seeds.reference_seed: the study's first
     participant's seed, as in generate), estimation_bound (None where none holds).
     """
@@ -61,39 +63,25 @@ def onsets_fixed(study: Study) -> bool:
     return study.spec.timing.soa is not None or len(set(trial_durations(study).tolist())) == 1
 
 
-def block_ordering(counts: np.ndarray, baseline: int | None, block: int) -> np.ndarray:
-    """Conditions in blocks of `block` trials taken in turn (the baseline's blocks between them)."""
-    left = counts.astype(int).copy()
-    order = [c for c in range(len(counts)) if c != baseline]
-    out: list[int] = []
-    while left.sum():
-        for c in order:
-            take = min(block, left[c])
-            out += [c] * take
-            left[c] -= take
-            if baseline is not None and left[baseline]:
-                rest = min(block, left[baseline])
-                out += [baseline] * rest
-                left[baseline] -= rest
-        if baseline is not None and all(left[c] == 0 for c in order):
-            out += [baseline] * left[baseline]
-            left[baseline] = 0
-    return np.asarray(out, dtype=np.int64)
-
-
 def _score_orderings(
-    study: Study, setup: AnalysisSetup, designs: list[list[np.ndarray]], seed: int
+    study: Study,
+    setup: AnalysisSetup,
+    designs: list[list[np.ndarray]],
+    seed: int,
+    detection: bool = True,
+    estimation: bool = True,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Detection and estimation of several designs (each a list of runs) under the spec's timing."""
+    """Detection and estimation of several designs (each a list of runs) under the spec's timing
+    (a figure not asked for is NaN)."""
     if onsets_fixed(study):
         ev = evaluator_for(study, setup, make_schedules(study, designs[0], seed))
-        return ev.score_many(np.array([np.concatenate(d) for d in designs]))
+        return ev.score_many(np.array([np.concatenate(d) for d in designs]), detection, estimation)
     direct = DirectScorer(setup)  # onsets move with the labels: each design on its own schedule
     det, est = [], []
     for d in designs:
         sched = make_schedules(study, d, seed)
         layout = make_layout(setup, [s.onsets for s in sched], [s.n_volumes for s in sched], trial_durations(study))
-        a, b = direct.score(layout, np.concatenate(d))
+        a, b = direct.score(layout, np.concatenate(d), detection, estimation)
         det.append(a)
         est.append(b)
     return np.array(det), np.array(est)
@@ -102,22 +90,24 @@ def _score_orderings(
 def references(study: Study, setup: AnalysisSetup, runs_index: list[int], seed: int = 0) -> dict[str, float]:
     """The references the shares divide by, for the same counts and timing.
 
-    block_detection: the highest detection efficiency (units as ScoreRow.detection) over block
-    designs of the listed block sizes (trials per block), block_size: the size that reached it;
-    random_estimation: the mean estimation efficiency of N_RANDOM orderings shuffled by numpy's
-    default_rng(seed) (one permutation per run, runs in order, orderings in turn).
+    block_detection: the highest detection efficiency (units as ScoreRow.detection) over the block
+    family of seqsolve.blocks (every block size from 1 trial to the largest count, every baseline
+    placement; rules not applied), block_size and block_placement: the layout that reached it (the
+    first in the family's order on a tie); random_estimation: the mean estimation efficiency of
+    N_RANDOM orderings shuffled by numpy's default_rng(seed) (one permutation per run, runs in
+    order, orderings in turn).
     """
     counts = [study.facts.counts[r] for r in runs_index]
-    biggest = int(max(c.max() for c in counts))
-    sizes = sorted({b for b in (1, 2, 3, 4, 5, 6, 8, 10, 12, 15, 16, 20, 24, 30, 40) if b <= biggest} | {biggest})
-    blocks = [[block_ordering(c, study.facts.baseline, b) for c in counts] for b in sizes]
-    det_blocks, _ = _score_orderings(study, setup, blocks, seed)
+    family = block_family(counts, study.facts.baseline)
+    det_blocks, _ = _score_orderings(study, setup, [runs for _, runs in family], seed, estimation=False)
+    best = family[int(np.argmax(det_blocks))][0]
     rng = np.random.default_rng(seed)
     randoms = [[rng.permutation(np.repeat(np.arange(len(c)), c)) for c in counts] for _ in range(N_RANDOM)]
-    _, est_random = _score_orderings(study, setup, randoms, seed)
+    _, est_random = _score_orderings(study, setup, randoms, seed, detection=False)
     return {
         "block_detection": float(det_blocks.max()),
-        "block_size": sizes[int(np.argmax(det_blocks))],
+        "block_size": best.size,
+        "block_placement": best.placement,
         "random_estimation": float(est_random.mean()),
     }
 

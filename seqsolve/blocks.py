@@ -49,47 +49,56 @@ class BlockLayout:
         return f"blocks of {self.size}, baseline {self.placement}"
 
 
-def condition_blocks(counts: np.ndarray, baseline: int | None, size: int) -> list[np.ndarray]:
-    """The modelled conditions' blocks of `size` trials, in turn, in spec order (each an int array)."""
-    left = counts.astype(int).copy()
+def condition_blocks(counts: np.ndarray, baseline: int | None, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """The modelled conditions' blocks of `size` trials, in turn, in spec order: (labels, lengths),
+    each of shape (n_blocks,). Turn k holds every condition's k-th block, so a condition that
+    runs out drops out of later turns."""
     order = [c for c in range(len(counts)) if c != baseline]
-    blocks = []
-    while any(left[c] for c in order):
-        for c in order:
-            take = min(size, int(left[c]))
-            if take:
-                blocks.append(np.full(take, c, dtype=np.int64))
-                left[c] -= take
-    return blocks
+    turn, rank, label, length = [], [], [], []
+    for i, c in enumerate(order):
+        n = int(counts[c])
+        k = -(-n // size)  # blocks of c, the last one shorter when size does not divide n
+        lengths = np.full(k, size, dtype=np.int64)
+        if k and n % size:
+            lengths[-1] = n % size
+        turn.append(np.arange(k))
+        rank.append(np.full(k, i))
+        label.append(np.full(k, c, dtype=np.int64))
+        length.append(lengths)
+    at = np.lexsort((np.concatenate(rank), np.concatenate(turn)))
+    return np.concatenate(label)[at], np.concatenate(length)[at]
 
 
-def even_split(total: int, n_slots: int) -> list[int]:
+def even_split(total: int, n_slots: int) -> np.ndarray:
     """total trials over n_slots slots as evenly as it divides (sizes differ by at most 1)."""
-    edges = [(i * total) // n_slots for i in range(n_slots + 1)]
-    return [b - a for a, b in zip(edges[:-1], edges[1:])]
+    edges = (np.arange(n_slots + 1) * total) // n_slots
+    return np.diff(edges)
 
 
 def layout_run(counts: np.ndarray, baseline: int | None, layout: BlockLayout) -> np.ndarray:
     """The ordering of one run (counts per condition) under a block layout, shape (n_trials,)."""
-    blocks = condition_blocks(counts, baseline, layout.size)
-    n0 = int(counts[baseline]) if baseline is not None else 0
     slots = PLACEMENTS[layout.placement]
-    if n0 == 0 or not blocks:
-        parts = blocks + ([np.full(n0, baseline, dtype=np.int64)] if n0 else [])
-        return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
-    if slots is None:
+    n0 = int(counts[baseline]) if baseline is not None else 0
+    if slots is None and n0:
         return block_ordering(counts, baseline, layout.size)
-    start, between, end = slots
-    n_slots = int(start) + (len(blocks) - 1) * int(between) + int(end)
-    if n_slots == 0:  # one block and no gap between blocks: the baseline goes after it
-        start, end, n_slots = False, True, 1
-    sizes = iter(even_split(n0, n_slots))
-    out = [np.full(next(sizes), baseline, dtype=np.int64)] if start else []
-    for i, block in enumerate(blocks):
-        out.append(block)
-        if (between and i < len(blocks) - 1) or (end and i == len(blocks) - 1):
-            out.append(np.full(next(sizes), baseline, dtype=np.int64))
-    return np.concatenate(out)
+    labels, lengths = condition_blocks(counts, baseline, layout.size)
+    n = len(labels)
+    gaps = np.zeros(n + 1, dtype=np.int64)  # baseline trials before block 0, after blocks 0 .. n-1
+    if n0 and n == 0:
+        gaps[0] = n0
+    elif n0:
+        start, between, end = slots
+        chosen = np.array([start] + [between] * (n - 1) + [end], dtype=bool)
+        if not chosen.any():  # one block and no gap between blocks: the baseline goes after it
+            chosen[-1] = True
+        gaps[chosen] = even_split(n0, int(chosen.sum()))
+    seq_labels = np.empty(2 * n + 1, dtype=np.int64)
+    seq_labels[0::2] = baseline if baseline is not None else -1
+    seq_labels[1::2] = labels
+    seq_lengths = np.empty(2 * n + 1, dtype=np.int64)
+    seq_lengths[0::2] = gaps
+    seq_lengths[1::2] = lengths
+    return np.repeat(seq_labels, seq_lengths)
 
 
 def block_ordering(counts: np.ndarray, baseline: int | None, block: int) -> np.ndarray:
@@ -112,17 +121,21 @@ def block_ordering(counts: np.ndarray, baseline: int | None, block: int) -> np.n
     return np.asarray(out, dtype=np.int64)
 
 
-def block_family(counts: list[np.ndarray], baseline: int | None) -> list[tuple[BlockLayout, list[np.ndarray]]]:
+def block_family(
+    counts: list[np.ndarray], baseline: int | None, sizes: list[int] | None = None
+) -> list[tuple[BlockLayout, list[np.ndarray]]]:
     """Every distinct block layout of these runs' counts (each (n_conditions,)): (layout, runs).
 
-    Sizes 1 .. the largest count of any run; placements as in PLACEMENTS (only "after each" when
-    there is no baseline, where they all coincide). Deterministic order: by size, then placement.
+    sizes: the block sizes (default: every size from 1 to the largest count of any run);
+    placements as in PLACEMENTS (only "after each" when there is no baseline, where they all
+    coincide). Deterministic order: by size, then placement.
     """
-    biggest = int(max(int(c.max()) for c in counts))
+    if sizes is None:
+        sizes = list(range(1, int(max(int(c.max()) for c in counts)) + 1))
     placements = list(PLACEMENTS) if baseline is not None else ["after each"]
     seen: set[bytes] = set()
     out = []
-    for size in range(1, biggest + 1):
+    for size in sizes:
         for placement in placements:
             layout = BlockLayout(size, placement)
             runs = [layout_run(c, baseline, layout) for c in counts]

@@ -136,3 +136,8 @@ def test_best_block_period_is_the_common_one_for_the_canonical_hrf_with_a_128_s_
     assert det[sizes == 32][0] < 0.5 * det.max()  # 64 s on, a 128 s period: at the cut-off
     ref = references(study, make_setup(study), [0], 0)
     assert 14 <= 2 * ref["block_size"] <= 24 and ref["block_detection"] >= det.max()
+    # the best of every size of every placement (all 1,050 layouts scored here)
+    every = block_family([np.array([160, 160])], 1)
+    assert ref["block_detection"] == pytest.approx(
+        detections(study, np.array([r[0] for _, r in every])).max(), rel=1e-12
+    )

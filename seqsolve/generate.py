@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from seqsolve.audit import audit_orderings
+from seqsolve.efficiency.hrf_family import FAMILY
 from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
 from seqsolve.io.atomic import ensure_writable, write_folder
@@ -255,16 +256,22 @@ def efficiency_summary(study: Study, design: Design) -> dict:
     """Detection and estimation per run and for all runs (no reference designs: kept quick)."""
     from seqsolve.score import score_design
 
-    rows = score_design(study, design.label, design.runs, design.schedules, with_references=False)
+    robust = study.spec.objective.hrf_robust != "canonical"
+    rows = score_design(study, design.label, design.runs, design.schedules, with_references=False, hrf_family=robust)
     return {
         r.run: {
             "detection": round(r.detection, 9),
             "estimation": round(r.estimation, 9),
             "counterbalance_max": round(r.counterbalance_max, 9),
             "entropy_bits": round(r.entropy_bits, 9),
+            **({"hrf_family": _rounded(r.hrf_family)} if r.hrf_family is not None else {}),
         }
         for r in rows
     }
+
+
+def _rounded(figures: dict) -> dict:
+    return {k: round(v, 9) if isinstance(v, float) else v for k, v in figures.items()}
 
 
 def manifest(study: Study, designs: list[Design]) -> dict:
@@ -303,7 +310,11 @@ def manifest(study: Study, designs: list[Design]) -> dict:
 
 def _objective_summary(study: Study, designs: list[Design]) -> dict:
     """What the search was steered by, and how even the participants came out."""
-    out: dict = {"spec": study.spec.objective.model_dump(mode="json")}
+    robust = study.spec.objective.hrf_robust != "canonical"
+    # hrf_robust written only when asked for, so manifests of specs without it stay as they were
+    out: dict = {"spec": study.spec.objective.model_dump(mode="json", exclude=None if robust else {"hrf_robust"})}
+    if robust:
+        out["hrf_family"] = [shape.as_dict() for shape in FAMILY]
     if isinstance(designs, StudyDesigns) and designs.weights is not None:
         out["weights"] = designs.weights.as_dict()
         out["references"] = designs.references.as_dict() if designs.references else None

@@ -16,6 +16,7 @@ import numpy as np
 
 from seqsolve.efficiency.fast import DirectScorer, Evaluator
 from seqsolve.efficiency.grid import make_layout
+from seqsolve.efficiency.hrf_family import combine_family, family_setups
 from seqsolve.efficiency.metrics import counterbalance_deviation
 from seqsolve.efficiency.setup import AnalysisSetup, make_setup
 from seqsolve.score import evaluator_for, onsets_fixed, references
@@ -70,14 +71,21 @@ class References:
     block_size: int
     random_estimation: float
     block_placement: str = "after each"  # seqsolve.blocks.PLACEMENTS
+    hrf_robust: str = "canonical"  # how block_detection reads the HRF family (objective.hrf_robust)
 
     @classmethod
     def for_study(cls, study: Study, setup: AnalysisSetup, seed: int) -> References:
-        ref = references(study, setup, list(range(study.facts.n_runs)), seed)
-        return cls(ref["block_detection"], int(ref["block_size"]), ref["random_estimation"], ref["block_placement"])
+        mode = study.spec.objective.hrf_robust
+        ref = references(study, setup, list(range(study.facts.n_runs)), seed, mode)
+        return cls(
+            ref["block_detection"], int(ref["block_size"]), ref["random_estimation"], ref["block_placement"], mode
+        )
 
     def as_dict(self) -> dict:
-        return dict(self.__dict__)
+        out = dict(self.__dict__)
+        if self.hrf_robust == "canonical":  # as before the family existed: outputs stay byte-identical
+            del out["hrf_robust"]
+        return out
 
 
 class Scorer:
@@ -107,6 +115,18 @@ class Scorer:
         self._evaluator: Evaluator | None = None
         self.use_det = weights.detection > 0
         self.use_est = weights.estimation > 0
+        # detection over the HRF family (hrf_family.py) when the objective asks: every member scored
+        # through its own evaluator (the search tracks each member: tracking.FamilyTracks)
+        self.hrf_robust = study.spec.objective.hrf_robust if self.use_det else "canonical"
+        self.members = family_setups(self.setup)[1:] if self.hrf_robust != "canonical" else []
+        self._member_direct = [DirectScorer(m) for m in self.members]
+        self._member_evaluators: list[Evaluator] | None = None
+
+    @property
+    def untracked(self) -> bool:
+        """Must swaps be scored through `swap_gains` (onsets moving with the labels, or a
+        counterbalance weight), rather than by the search's tracked scores?"""
+        return not self.fixed or bool(self.weights.counterbalance)
 
     # -- evaluators ---------------------------------------------------------------------------
 
@@ -118,6 +138,25 @@ class Scorer:
         if self.fixed:
             self._evaluator = ev
         return ev
+
+    def member_evaluators(self, runs: list[np.ndarray]) -> list[Evaluator]:
+        """One evaluator per non-canonical HRF family member, for the timing of these runs."""
+        if not self.members:
+            return []
+        if self.fixed and self._member_evaluators is not None:
+            return self._member_evaluators
+        schedules = make_schedules(self.study, runs, self.seed, self.gaps)
+        evs = [evaluator_for(self.study, m, schedules) for m in self.members]
+        if self.fixed:
+            self._member_evaluators = evs
+        return evs
+
+    def family_detection(self, canonical: np.ndarray, others) -> np.ndarray:
+        """Detection read as objective.hrf_robust says: `canonical` (the canonical member's figures)
+        and others() (an iterable of the other members' figures, same shape) combined."""
+        if not self.members:
+            return canonical
+        return combine_family(np.array([canonical, *others()]), self.hrf_robust)
 
     def with_gaps(self, gaps: list[np.ndarray]) -> Scorer:
         """The same scorer on rearranged gaps (a new timing, so a new evaluator)."""
@@ -146,8 +185,7 @@ class Scorer:
         """Weighted scores of many designs (each a list of runs)."""
         cb = np.array([self.counterbalance(d) for d in designs]) if self.weights.counterbalance else 0.0
         if self.fixed:
-            codes = np.array([np.concatenate(d) for d in designs])
-            det, est = self.evaluator(designs[0]).score_many(codes, self.use_det, self.use_est)
+            det, est = self.score_many_parts(designs, self.use_det, self.use_est)
         else:
             pairs = [self._one(d, self.use_det, self.use_est) for d in designs]
             det = np.array([p[0] for p in pairs])
@@ -158,8 +196,21 @@ class Scorer:
         """Both efficiencies of one design on its own schedule, exactly: when onsets move with the
         labels, building the design matrices directly is cheaper than an Evaluator."""
         if self.fixed:
-            return self.evaluator(runs).score(np.concatenate(runs))
+            det, est = self.score_many_parts([runs], detection, estimation)
+            return float(det[0]), float(est[0])
         return self._direct(runs, self.gaps, detection, estimation)
+
+    def score_many_parts(
+        self, designs: list[list[np.ndarray]], detection: bool = True, estimation: bool = True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Detection (read over the HRF family as the objective says) and estimation of designs on
+        this scorer's fixed timing, two arrays (B,); NaN for a part not asked for."""
+        codes = np.array([np.concatenate(d) for d in designs])
+        det, est = self.evaluator(designs[0]).score_many(codes, detection, estimation)
+        if detection:
+            evs = self.member_evaluators(designs[0])
+            det = self.family_detection(det, lambda: (e.score_many(codes, True, False)[0] for e in evs))
+        return det, est
 
     def _direct(
         self, runs: list[np.ndarray], gaps: list[np.ndarray] | None, detection: bool, estimation: bool
@@ -169,7 +220,15 @@ class Scorer:
         layout = make_layout(
             self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
         )
-        return self.direct.score(layout, np.concatenate(runs), detection, estimation)
+        codes = np.concatenate(runs)
+        det, est = self.direct.score(layout, codes, detection, estimation)
+        if detection and self.members:
+            det = float(
+                self.family_detection(
+                    np.array(det), lambda: (d.score(layout, codes, True, False)[0] for d in self._member_direct)
+                )
+            )
+        return det, est
 
     def score(self, runs: list[np.ndarray]) -> float:
         return float(self.score_many([runs])[0])
@@ -216,6 +275,9 @@ class Scorer:
         if len(pairs) == 0:
             return np.zeros(0)
         det, est = self.evaluator(runs).swap_scores(codes, pairs, self.use_det, self.use_est)
+        if self.fixed and self.use_det:
+            evs = self.member_evaluators(runs)
+            det = self.family_detection(det, lambda: (e.swap_scores(codes, pairs, True, False)[0] for e in evs))
         if self.fixed:
             cb = 0.0
             if self.weights.counterbalance:
@@ -234,5 +296,10 @@ class Scorer:
         codes = np.concatenate(runs)
         ev = self.evaluator(runs)
         det, est = ev.change_scores(codes, self.use_det, self.use_est, trials)
-        now = self.combine(*ev.score_many(codes[None], self.use_det, self.use_est), 0.0)[0]
+        now_det, now_est = ev.score_many(codes[None], self.use_det, self.use_est)
+        if self.use_det:
+            evs = self.member_evaluators(runs)
+            det = self.family_detection(det, lambda: (e.change_scores(codes, True, False, trials)[0] for e in evs))
+            now_det = self.family_detection(now_det, lambda: (e.score_many(codes[None], True, False)[0] for e in evs))
+        now = self.combine(now_det, now_est, 0.0)[0]
         return self.combine(det, est, 0.0) - now

@@ -164,16 +164,30 @@ def test_worst_case_steering_gives_a_better_worst_case(counts, contrasts, seed):
 # --- the search optimises what score reports ---
 
 
+JITTER = {"tr": 2.0, "trial_duration": 1.0, "iti": {"distribution": "uniform", "min": 1.0, "max": 3.0}}
+
+
 @pytest.mark.parametrize("mode", ["worst", "mean"])
-@pytest.mark.parametrize("estimation", [0.0, 1.0])
-def test_searched_figures_equal_what_score_reports(mode, estimation, tmp_path):
+@pytest.mark.parametrize(
+    "estimation, counterbalance, timing, durations",
+    [
+        (0.0, 0.0, {"tr": 2.0, "soa": 2.0}, [1.0] * 3),  # tracked members, detection alone
+        (1.0, 0.0, {"tr": 2.0, "soa": 2.0}, [1.0] * 3),  # and beside tracked estimation
+        (1.0, 0.5, {"tr": 2.0, "soa": 2.0}, [1.0] * 3),  # swaps through the Scorer's evaluators
+        (0.0, 0.0, JITTER, [1.0] * 3),  # jittered gaps, onsets fixed by them
+        (0.0, 0.0, JITTER, [1.0, 2.0, 1.0]),  # onsets moving with the labels: each design its own timing
+    ],
+    ids=["detection", "with-estimation", "counterbalance", "jitter", "moving-onsets"],
+)
+def test_searched_figures_equal_what_score_reports(mode, estimation, counterbalance, timing, durations):
+    objective = {"detection": 1.0, "estimation": estimation, "counterbalance": counterbalance, "iterations": 2}
     study = make_study(
         [10, 10, 10],
         baseline=2,
         runs=2,
-        durations=[1.0] * 3,
-        timing={"tr": 2.0, "soa": 2.0},
-        objective={"detection": 1.0, "estimation": estimation, "iterations": 3, "hrf_robust": mode},
+        durations=durations,
+        timing=timing,
+        objective={**objective, "hrf_robust": mode},
     )
     designs = design_study(study)
     d = designs[0]

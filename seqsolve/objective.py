@@ -5,7 +5,9 @@ A participant's score is the weighted mean of
   estimation      / the mean estimation of random orderings (same counts and timing),
   counterbalance  = 1 / (1 + RMS deviation of the first-order pair counts from ideal),
 with the weights of the spec's [objective]. All three read as plain fractions: 0.84 detection is
-"84 % of the block design's". No solver imports: this module only scores.
+"84 % of the block design's". With objective.hrf_robust "worst" or "mean", detection is the worst
+(or mean) over the HRF family of efficiency/hrf_family.py, and so is the block design's it is divided
+by. No solver imports: this module only scores.
 """
 
 from __future__ import annotations

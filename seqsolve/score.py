@@ -188,12 +188,10 @@ def score_design(
             row.estimation_vs_random = est / ref["random_estimation"] if ref["random_estimation"] > 0 else None
             row.references = {**ref, "random_orderings": N_RANDOM, "estimation_bound": bound}
             if hrf_family and mode != "canonical":  # the reference generate's objective divides by
-                block = references(study, setup, idx, seed, mode)
-                row.references[f"block_detection_{mode}"] = block["block_detection"]
+                block = _best_block(study, setup, [study.facts.counts[r] for r in idx], seed, mode)[1]
+                row.references[f"block_detection_{mode}"] = block
                 figure = row.hrf_family["min" if mode == "worst" else "mean"]
-                row.hrf_family[f"{mode}_vs_block"] = (
-                    figure / block["block_detection"] if block["block_detection"] > 0 else None
-                )
+                row.hrf_family[f"{mode}_vs_block"] = figure / block if block > 0 else None
         rows.append(row)
     return rows
 

@@ -527,7 +527,9 @@ def score(
         "variance. --json adds the reference values (block design's detection and block size, random estimation).\n"
         "vs block: share of the best block design's detection; vs random: of the mean shuffled ordering's estimation\n"
         "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
-        "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
+        "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits.\n"
+        "HRF min, mean: detection over 12 plausible HRFs (peak 4-7 s, three undershoots); worst HRF: the member\n"
+        "giving the minimum, as peak/undershoot latency and undershoot ratio."
     )
 
 
@@ -557,6 +559,13 @@ def _check_scope(study) -> str:
     )
 
 
+def _hrf_cells(family: dict | None) -> list[str]:
+    """Detection over the HRF family: minimum, mean, and the worst member (peak and undershoot in s)."""
+    if family is None:
+        return ["-", "-", "-"]
+    return [f"{family['min']:.4g}", f"{family['mean']:.4g}", family["worst"].replace(" s, undershoot ", "/")]
+
+
 def _score_table(rows) -> str:
     head = [
         "participant",
@@ -569,6 +578,9 @@ def _score_table(rows) -> str:
         "cb max",
         "H bits",
         "max r",
+        "HRF min",
+        "HRF mean",
+        "worst HRF",
     ]
 
     def pct(v):
@@ -588,6 +600,7 @@ def _score_table(rows) -> str:
                 f"{r.counterbalance_max:.2f}",
                 f"{r.entropy_bits:.2f}",
                 f"{r.max_correlation:.2f}",
+                *_hrf_cells(r.hrf_family),
             ]
         )
     out = [_table(lines[0], lines[1:])]
@@ -673,7 +686,8 @@ def compare(
         typer.echo(f"  {r['family']}: " + (f"{r['absent']}: " if r["absent"] else "") + r["note"])
     ref = result.references
     typer.echo(
-        f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "
+        f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, baseline "
+        f"{ref.block_placement}, rules or not); "
         "estimation as a multiple of the mean random ordering's; same counts and timing."
     )
     if plot is not None:

@@ -1,7 +1,7 @@
 """The standard design families, built under a study's own counts, timing and rules where they allow.
 
-- block: each condition in blocks of b trials taken in turn (baseline blocks between them),
-  for the block sizes the counts allow; the best valid size is the family's representative.
+- block: each condition in blocks of b trials taken in turn, for every block size the counts
+  allow and every baseline placement of seqsolve.blocks; those that pass the rules.
 - permuted block: the block design with a share of its trials swapped at random within a run
   (a design between blocked and random; Liu 2004, NeuroImage 21:387-400, calls these
   permuted block designs).
@@ -22,13 +22,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from seqsolve.blocks import block_family, block_ordering
 from seqsolve.rules.base import Violation
-from seqsolve.score import block_ordering
 from seqsolve.solve import check_runs, derive_seed, sample_orderings
 from seqsolve.spec import Study
-
-#: block sizes tried (those above the largest count are dropped)
-BLOCK_SIZES = (1, 2, 3, 4, 5, 6, 8, 10, 12, 15, 16, 20, 24, 30, 40)
 
 
 @dataclass
@@ -50,26 +47,36 @@ def _first_problem(violations: list[Violation]) -> str:
 
 
 def block_designs(study: Study) -> Family:
-    """Every valid block size; labels give the size."""
+    """Every block layout of seqsolve.blocks (sizes and baseline placements) that passes the rules."""
     fam = Family("block")
-    counts = study.facts.counts
-    biggest = int(counts.max())
-    refused = []
-    for b in sorted({s for s in BLOCK_SIZES if s <= biggest} | {biggest}):
-        runs = [block_ordering(c, study.facts.baseline, b) for c in counts]
+    family = block_family(list(study.facts.counts), study.facts.baseline)
+    refused, sizes = [], set()
+    for layout, runs in family:
         problems = check_runs(study, study.rules, runs)
         if problems:
-            refused.append((b, _first_problem(problems)))
+            refused.append((layout, _first_problem(problems)))
             continue
         fam.designs.append(runs)
-        fam.labels.append(f"blocks of {b}")
+        fam.labels.append(layout.label)
+        sizes.add(layout.size)
     if fam.designs:
-        fam.note = f"block sizes allowed by the rules: {', '.join(lab.split()[-1] for lab in fam.labels)}"
+        fam.note = f"{len(fam.designs)} of {len(family)} layouts pass the rules (block sizes {_ranges(sorted(sizes))})"
     else:
-        b, why = refused[0]
+        layout, why = refused[0]
         fam.refused_by_rules = True
-        fam.note = f"no block size passes the rules (blocks of {b}: {why})"
+        fam.note = f"no block layout passes the rules ({layout.label}: {why})"
     return fam
+
+
+def _ranges(values: list[int]) -> str:
+    """Sorted integers as runs: [1, 2, 3, 5] -> '1-3, 5'."""
+    runs: list[list[int]] = []
+    for v in values:
+        if runs and v == runs[-1][-1] + 1:
+            runs[-1].append(v)
+        else:
+            runs.append([v])
+    return ", ".join(f"{r[0]}" if len(r) == 1 else f"{r[0]}-{r[-1]}" for r in runs)
 
 
 def permuted_block_designs(

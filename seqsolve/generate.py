@@ -14,6 +14,7 @@ import numpy as np
 
 from seqsolve.audit import audit_orderings
 from seqsolve.counterbalance import assign_study, manifest_section, run_values
+from seqsolve.efficiency.hrf_family import FAMILY
 from seqsolve.efficiency.setup import NO_TR_MESSAGE
 from seqsolve.errors import InternalError, Problem, SpecError
 from seqsolve.io.atomic import ensure_writable, write_folder
@@ -284,13 +285,15 @@ def efficiency_summary(study: Study, design: Design) -> dict:
     if study.spec.timing.tr is None:
         return sequence_summary(study, design.runs)
 
-    rows = score_design(study, design.label, design.runs, design.schedules, with_references=False)
+    robust = study.spec.objective.hrf_robust != "canonical"
+    rows = score_design(study, design.label, design.runs, design.schedules, with_references=False, hrf_family=robust)
     return {
         r.run: {
             "detection": round(r.detection, 9),
             "estimation": round(r.estimation, 9),
             "counterbalance_max": round(r.counterbalance_max, 9),
             "entropy_bits": round(r.entropy_bits, 9),
+            **({"hrf_family": _rounded(r.hrf_family)} if r.hrf_family is not None else {}),
         }
         for r in rows
     }
@@ -320,6 +323,10 @@ def _score_entry(study: Study, d: Design) -> dict:
     if study.spec.timing.tr is None:
         score = {k: score[k] for k in ("score", "counterbalance")}
     return {"score": score, "search": d.search}
+
+
+def _rounded(figures: dict) -> dict:
+    return {k: round(v, 9) if isinstance(v, float) else v for k, v in figures.items()}
 
 
 def manifest(study: Study, designs: list[Design]) -> dict:
@@ -368,7 +375,11 @@ def _counterbalance_summary(study: Study, designs: list[Design]) -> dict:
 
 def _objective_summary(study: Study, designs: list[Design]) -> dict:
     """What the search was steered by, and how even the participants came out."""
-    out: dict = {"spec": study.spec.objective.model_dump(mode="json")}
+    robust = study.spec.objective.hrf_robust != "canonical"
+    # hrf_robust written only when asked for, so manifests of specs without it stay as they were
+    out: dict = {"spec": study.spec.objective.model_dump(mode="json", exclude=None if robust else {"hrf_robust"})}
+    if robust:
+        out["hrf_family"] = [shape.as_dict() for shape in FAMILY]
     if isinstance(designs, StudyDesigns) and designs.weights is not None:
         out["weights"] = designs.weights.as_dict()
         timed = study.spec.timing.tr is not None  # without a TR there is nothing to divide by

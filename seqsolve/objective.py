@@ -5,10 +5,13 @@ A participant's score is the weighted mean of
   estimation      / the mean estimation of random orderings (same counts and timing),
   counterbalance  = 1 / (1 + RMS deviation of the first-order pair counts from ideal),
 with the weights of the spec's [objective]. All three read as plain fractions: 0.84 detection is
-"84 % of the block design's". No solver imports: this module only scores.
+"84 % of the block design's". With objective.hrf_robust "worst" or "mean", detection is the worst
+(or mean) over the HRF family of efficiency/hrf_family.py, and so is the block design's it is divided
+by.
 
 A spec without timing.tr (EEG/behavioural) has no fMRI analysis: its Scorer has no setup, detection
 and estimation are 0 with weight 0 (spec.py refuses other weights), and only counterbalance steers.
+No solver imports: this module only scores.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ import numpy as np
 
 from seqsolve.efficiency.fast import DirectScorer, Evaluator
 from seqsolve.efficiency.grid import make_layout
+from seqsolve.efficiency.hrf_family import combine_family, family_setups
 from seqsolve.efficiency.metrics import counterbalance_deviation
 from seqsolve.efficiency.setup import AnalysisSetup, make_setup
 from seqsolve.score import evaluator_for, onsets_fixed, references
@@ -77,17 +81,25 @@ class References:
     block_detection: float
     block_size: int
     random_estimation: float
+    block_placement: str = "after each"  # seqsolve.blocks.PLACEMENTS
+    hrf_robust: str = "canonical"  # how block_detection reads the HRF family (objective.hrf_robust)
 
     @classmethod
     def for_study(cls, study: Study, setup: AnalysisSetup | None, seed: int) -> References:
         """The study's references; all 0 without an analysis (setup None), where nothing divides by them."""
         if setup is None:
             return cls(0.0, 0, 0.0)
-        ref = references(study, setup, list(range(study.facts.n_runs)), seed)
-        return cls(ref["block_detection"], int(ref["block_size"]), ref["random_estimation"])
+        mode = study.spec.objective.hrf_robust
+        ref = references(study, setup, list(range(study.facts.n_runs)), seed, mode)
+        return cls(
+            ref["block_detection"], int(ref["block_size"]), ref["random_estimation"], ref["block_placement"], mode
+        )
 
     def as_dict(self) -> dict:
-        return dict(self.__dict__)
+        out = dict(self.__dict__)
+        if self.hrf_robust == "canonical":  # as before the family existed: outputs stay byte-identical
+            del out["hrf_robust"]
+        return out
 
 
 class Scorer:
@@ -119,6 +131,18 @@ class Scorer:
         self._evaluator: Evaluator | None = None
         self.use_det = weights.detection > 0
         self.use_est = weights.estimation > 0
+        # detection over the HRF family (hrf_family.py) when the objective asks: every member scored
+        # through its own evaluator (the search tracks each member: tracking.FamilyTracks)
+        self.hrf_robust = study.spec.objective.hrf_robust if self.use_det else "canonical"
+        self.members = family_setups(self.setup)[1:] if self.hrf_robust != "canonical" else []
+        self._member_direct = [DirectScorer(m) for m in self.members]
+        self._member_evaluators: list[Evaluator] | None = None
+
+    @property
+    def untracked(self) -> bool:
+        """Must swaps be scored through `swap_gains` (onsets moving with the labels, or a
+        counterbalance weight), rather than by the search's tracked scores?"""
+        return not self.fixed or bool(self.weights.counterbalance)
 
     # -- evaluators ---------------------------------------------------------------------------
 
@@ -130,6 +154,25 @@ class Scorer:
         if self.fixed:
             self._evaluator = ev
         return ev
+
+    def member_evaluators(self, runs: list[np.ndarray]) -> list[Evaluator]:
+        """One evaluator per non-canonical HRF family member, for the timing of these runs."""
+        if not self.members:
+            return []
+        if self.fixed and self._member_evaluators is not None:
+            return self._member_evaluators
+        schedules = make_schedules(self.study, runs, self.seed, self.gaps)
+        evs = [evaluator_for(self.study, m, schedules) for m in self.members]
+        if self.fixed:
+            self._member_evaluators = evs
+        return evs
+
+    def family_detection(self, canonical: np.ndarray, others) -> np.ndarray:
+        """Detection read as objective.hrf_robust says: `canonical` (the canonical member's figures)
+        and others() (an iterable of the other members' figures, same shape) combined."""
+        if not self.members:
+            return canonical
+        return combine_family(np.array([canonical, *others()]), self.hrf_robust)
 
     def with_gaps(self, gaps: list[np.ndarray]) -> Scorer:
         """The same scorer on rearranged gaps (a new timing, so a new evaluator)."""
@@ -160,8 +203,7 @@ class Scorer:
         if not self.timed:
             return self.combine(np.zeros(len(designs)), np.zeros(len(designs)), cb)
         if self.fixed:
-            codes = np.array([np.concatenate(d) for d in designs])
-            det, est = self.evaluator(designs[0]).score_many(codes, self.use_det, self.use_est)
+            det, est = self.score_many_parts(designs, self.use_det, self.use_est)
         else:
             pairs = [self._one(d, self.use_det, self.use_est) for d in designs]
             det = np.array([p[0] for p in pairs])
@@ -174,8 +216,21 @@ class Scorer:
         if not self.timed:
             return 0.0, 0.0
         if self.fixed:
-            return self.evaluator(runs).score(np.concatenate(runs))
+            det, est = self.score_many_parts([runs], detection, estimation)
+            return float(det[0]), float(est[0])
         return self._direct(runs, self.gaps, detection, estimation)
+
+    def score_many_parts(
+        self, designs: list[list[np.ndarray]], detection: bool = True, estimation: bool = True
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Detection (read over the HRF family as the objective says) and estimation of designs on
+        this scorer's fixed timing, two arrays (B,); NaN for a part not asked for."""
+        codes = np.array([np.concatenate(d) for d in designs])
+        det, est = self.evaluator(designs[0]).score_many(codes, detection, estimation)
+        if detection:
+            evs = self.member_evaluators(designs[0])
+            det = self.family_detection(det, lambda: (e.score_many(codes, True, False)[0] for e in evs))
+        return det, est
 
     def _direct(
         self, runs: list[np.ndarray], gaps: list[np.ndarray] | None, detection: bool, estimation: bool
@@ -185,7 +240,15 @@ class Scorer:
         layout = make_layout(
             self.setup, [s.onsets for s in schedules], [s.n_volumes for s in schedules], trial_durations(self.study)
         )
-        return self.direct.score(layout, np.concatenate(runs), detection, estimation)
+        codes = np.concatenate(runs)
+        det, est = self.direct.score(layout, codes, detection, estimation)
+        if detection and self.members:
+            det = float(
+                self.family_detection(
+                    np.array(det), lambda: (d.score(layout, codes, True, False)[0] for d in self._member_direct)
+                )
+            )
+        return det, est
 
     def score(self, runs: list[np.ndarray]) -> float:
         return float(self.score_many([runs])[0])
@@ -234,6 +297,9 @@ class Scorer:
         if not self.timed:
             return self.score_many(swapped(np.arange(len(pairs))))
         det, est = self.evaluator(runs).swap_scores(codes, pairs, self.use_det, self.use_est)
+        if self.fixed and self.use_det:
+            evs = self.member_evaluators(runs)
+            det = self.family_detection(det, lambda: (e.swap_scores(codes, pairs, True, False)[0] for e in evs))
         if self.fixed:
             cb = 0.0
             if self.weights.counterbalance:
@@ -254,5 +320,10 @@ class Scorer:
             return np.zeros((len(codes) if trials is None else len(trials), self.study.facts.n_conditions))
         ev = self.evaluator(runs)
         det, est = ev.change_scores(codes, self.use_det, self.use_est, trials)
-        now = self.combine(*ev.score_many(codes[None], self.use_det, self.use_est), 0.0)[0]
+        now_det, now_est = ev.score_many(codes[None], self.use_det, self.use_est)
+        if self.use_det:
+            evs = self.member_evaluators(runs)
+            det = self.family_detection(det, lambda: (e.change_scores(codes, True, False, trials)[0] for e in evs))
+            now_det = self.family_detection(now_det, lambda: (e.score_many(codes[None], True, False)[0] for e in evs))
+        now = self.combine(now_det, now_est, 0.0)[0]
         return self.combine(det, est, 0.0) - now

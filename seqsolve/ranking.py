@@ -45,7 +45,7 @@ def rank_designs(
     Each design and the sample are scored on the design's own timing: the files' gaps where the timing
     is jittered and the files give onsets, else the gaps the participant's seed draws.
     """
-    setup = make_setup(study)
+    setup = make_setup(study) if study.spec.timing.tr is not None else None  # none: counterbalance alone
     master = study.spec.study.seed
     refs = References.for_study(study, setup, reference_seed(master))
     weights = Weights.from_study(study)

@@ -43,7 +43,16 @@ from seqsolve.objective import Figures, Scorer
 from seqsolve.rules.participants_differ import ParticipantsDiffer
 from seqsolve.solve import SolveOptions, check_runs, choose_method, encode_rules, sample_orderings, solver_params
 from seqsolve.spec import Study
-from seqsolve.tracking import NO_FIR_TRACK, NO_TRACK, detection_track, fir_track, refresh, refresh_fir
+from seqsolve.tracking import (
+    NO_FIR_TRACK,
+    NO_TRACK,
+    FamilyTracks,
+    detection_track,
+    family_tracks,
+    fir_track,
+    refresh,
+    refresh_fir,
+)
 
 #: score gains below this are treated as no gain (scores are fractions near 1)
 TOL = 1e-9
@@ -290,6 +299,7 @@ class Search:
         self.late = np.zeros(1)  # late-acceptance list, sized in run()
         self.track = None  # detection kept current through swaps (tracking.py), where it applies
         self.fir = None  # and estimation
+        self.family = None  # or detection over the HRF family (tracking.FamilyTracks), when the objective asks
         self.track_scorer: Scorer | None = None
         self.judged = 0  # swaps judged by the local rule checks
         self._settled: list[np.ndarray] | None = None  # the best design last confirmed by the full checks
@@ -384,7 +394,7 @@ class Search:
         return kind
 
     def _moves_per_round(self) -> int:
-        if self.compiled:
+        if self.compiled or self.family is not None:  # tracked family moves cost about as much (measured)
             return self.options.moves * COMPILED_MOVES
         return self.options.moves if self.scorer.fixed else self.options.moves_moving
 
@@ -398,7 +408,7 @@ class Search:
 
     def _move(self) -> None:
         """Draw swaps, keep the valid ones, score them, make the best one under late acceptance."""
-        pairs = self._draw_pairs(self.options.batch_numpy)
+        pairs = self._draw_pairs(self.options.batch if self.family is not None else self.options.batch_numpy)
         if len(pairs):
             pairs = pairs[self.checker.valid(pairs)]
         slot = self.moves_made % len(self.late)
@@ -413,6 +423,8 @@ class Search:
         if score >= self.current_score - TOL or score >= self.late[slot]:
             if self.track is not None:
                 self.checker.kernels.detection_apply(self.track, self.checker.codes, *pairs[k])
+            if self.family is not None:
+                self.family.apply(self.checker.kernels, self.checker.codes, *pairs[k])
             if self.fir is not None:
                 self.checker.kernels.estimation_apply(self.fir, self.checker.codes, *pairs[k])
             self.checker.apply(*pairs[k])
@@ -471,30 +483,37 @@ class Search:
         """Scores of the current design kept for swaps (tracking.py): rebuilt for a new timing,
         recomputed from scratch otherwise."""
         sc = self.scorer
-        if not sc.fixed or sc.weights.counterbalance:
-            self.track = self.fir = None
+        if sc.untracked:
+            self.track = self.fir = self.family = None
             return
         codes = self.checker.codes
         if self.track_scorer is not sc:
             ev = sc.evaluator(self.current)
-            self.track = detection_track(ev, sc.setup, codes) if sc.use_det else None
+            self.track = detection_track(ev, sc.setup, codes) if sc.use_det and not sc.members else None
+            self.family = self._family_tracks(codes) if sc.use_det and sc.members else None
             self.fir = fir_track(ev, sc.setup, codes) if sc.use_est else None
             self.track_scorer = sc
             return
         if self.track is not None:
             refresh(self.track, codes)
+        if self.family is not None:
+            self.family.refresh(codes)
         if self.fir is not None:
             refresh_fir(self.fir, codes)
+
+    def _family_tracks(self, codes: np.ndarray) -> FamilyTracks | None:
+        """Detection tracked under each HRF family member (the objective's hrf_robust): the compiled
+        round takes one detection state, so these moves go one at a time (`_move`)."""
+        sc, runs = self.scorer, self.current
+        evaluators = [sc.evaluator(runs), *sc.member_evaluators(runs)]
+        return family_tracks(evaluators, [sc.setup, *sc.members], codes, sc.hrf_robust)
 
     @property
     def compiled(self) -> bool:
         """Can every move be made in compiled code (each weighted part tracked)?"""
         sc = self.scorer
         return (
-            sc.fixed
-            and not sc.weights.counterbalance
-            and (self.track is not None or not sc.use_det)
-            and (self.fir is not None or not sc.use_est)
+            not sc.untracked and (self.track is not None or not sc.use_det) and (self.fir is not None or not sc.use_est)
         )
 
     @property
@@ -527,13 +546,15 @@ class Search:
     def _swap_scores(self, pairs: np.ndarray) -> np.ndarray:
         """Exact weighted scores after each swap of the current design."""
         sc = self.scorer
-        if not sc.fixed or sc.weights.counterbalance:
+        if sc.untracked:
             return sc.swap_gains(self.current, pairs, exact=self.options.exact_moving)  # exact applies to moving onsets
         codes = self.checker.codes
         ev = sc.evaluator(self.current)
         det = est = np.zeros(len(pairs))
         if self.track is not None:
             det = self.checker.kernels.detection_swap_scores(self.track, codes, pairs)
+        elif self.family is not None:
+            det = self.family.swap_scores(self.checker.kernels, codes, pairs)
         elif sc.use_det:
             det = ev.swap_scores(codes, pairs, True, False)[0]
         if self.fir is not None:

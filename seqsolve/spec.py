@@ -317,6 +317,13 @@ class Objective(Strict):
     spread: float = Field(
         default=0.05, ge=0, lt=1, description="Every participant's score within this fraction of the best one's."
     )
+    hrf_robust: Literal["canonical", "worst", "mean"] = Field(
+        default="canonical",
+        description=(
+            "Detection under the canonical HRF, or its worst or mean over a family of 12 plausible shapes "
+            "(peak 4-7 s, three undershoots; seqsolve/efficiency/hrf_family.py). Not with a custom hrf."
+        ),
+    )
 
     @model_validator(mode="after")
     def _some_weight(self):
@@ -403,9 +410,11 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
     if seed is not None:
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
     facts = _facts(spec, source)
+    # a field left at a default it had before it existed stays out, so earlier specs keep their hash
+    unset = {"objective": {"hrf_robust"}} if spec.objective.hrf_robust == "canonical" else {}
     canonical = json.dumps(
         {
-            "spec": spec.model_dump(mode="json", exclude={"rules", "include"}),
+            "spec": spec.model_dump(mode="json", exclude={"rules": True, "include": True, **unset}),
             "rules": [r.model_dump(mode="json") for r in rules],
         },
         sort_keys=True,
@@ -559,6 +568,14 @@ def _check_references(spec: Spec, rules: list[Rule], sources: list[str]) -> list
                 )
     problems += _check_rule_values(rules, sources)
     problems += _check_contrasts(spec)
+    if spec.objective.hrf_robust != "canonical" and isinstance(spec.analysis.hrf, CustomHRF):
+        problems.append(
+            Problem(
+                "objective.hrf_robust",
+                f"'{spec.objective.hrf_robust}' needs the double-gamma family, and analysis.hrf is a custom "
+                'shape: use hrf_robust = "canonical", or hrf = "double-gamma"',
+            )
+        )
     if not problems and all(c.share is None for c in spec.conditions):
         if sum(c.trials for c in spec.conditions) == 0:
             problems.append(Problem("conditions", "every condition has 0 trials; give some trials"))

@@ -18,6 +18,7 @@ from collections import namedtuple
 import numpy as np
 
 from seqsolve.efficiency.fast import Evaluator
+from seqsolve.efficiency.hrf_family import combine_family
 from seqsolve.efficiency.setup import AnalysisSetup
 
 #: more trials than this and R'R (8 bytes per pair) is no longer small: the Evaluator scores instead
@@ -102,7 +103,40 @@ def refresh_fir(track: FirTrack, codes: np.ndarray) -> None:
     track.m[:] = track.tv @ z.T
 
 
+class FamilyTracks:
+    """One tracked detection state per HRF family member (hrf_family.py), for a detection figure
+    read over the family: a swap is scored under each member by the compiled kernels and the
+    figures combined as objective.hrf_robust says (worst or mean), so it equals the Scorer's."""
+
+    def __init__(self, tracks: list[Track], mode: str):
+        self.tracks, self.mode = tracks, mode
+
+    def swap_scores(self, kernels, codes: np.ndarray, pairs: np.ndarray) -> np.ndarray:
+        """Combined detection after each swap of pairs (n, 2) of the current design, shape (n,)."""
+        return combine_family(
+            np.array([kernels.detection_swap_scores(t, codes, pairs) for t in self.tracks]), self.mode
+        )
+
+    def apply(self, kernels, codes: np.ndarray, i: int, j: int) -> None:
+        """Bring every member's state up to date for the swap of i and j (codes: labels before it)."""
+        for t in self.tracks:
+            kernels.detection_apply(t, codes, i, j)
+
+    def refresh(self, codes: np.ndarray) -> None:
+        for t in self.tracks:
+            refresh(t, codes)
+
+
+def family_tracks(evaluators: list[Evaluator], setups: list[AnalysisSetup], codes: np.ndarray, mode: str):
+    """Tracked detection under each family member (canonical first), or None where tracking does
+    not apply to one of them (see detection_track)."""
+    tracks = [detection_track(ev, setup, codes) for ev, setup in zip(evaluators, setups)]
+    return None if any(t is None for t in tracks) else FamilyTracks(tracks, mode)
+
+
 __all__ = [
+    "FamilyTracks",
+    "family_tracks",
     "MAX_TRIALS",
     "NO_FIR_TRACK",
     "NO_TRACK",

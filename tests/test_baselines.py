@@ -152,7 +152,10 @@ def test_shuffle_and_reject_is_deterministic_and_counts_its_shuffles():
     assert check_runs(study, study.rules, a.runs) == []
 
 
-@pytest.mark.parametrize("weights", [(1.0, 0.0, 0.0), (1.0, 1.0, 0.0)])
+# (2, 1): the block reference of this spec rose 1.87 times when it came to search the whole block family
+# (0.445 -> 0.830), which halved detection's pull at weights (1, 1); (2, 1) keeps the balance of
+# detection and estimation this test was written for (at (1, 1) two of four GA runs now stop at 0.985)
+@pytest.mark.parametrize("weights", [(1.0, 0.0, 0.0), (2.0, 1.0, 0.0)])
 def test_the_genetic_algorithm_finds_the_optimum_of_a_tiny_spec_and_beats_random_valid_sampling(weights):
     # 4 + 4 + 3 trials: 11!/(4!4!3!) = 11,550 orderings (the multinomial coefficient), 7,342 with at
     # most 2 in a row; every valid one scored, as in tests/test_search.py

@@ -213,8 +213,8 @@ def test_references_are_printed_by_score_json_and_hold_to_first_principles(tmp_p
 
     from typer.testing import CliRunner
 
+    from seqsolve.blocks import BlockLayout, layout_run
     from seqsolve.cli import app
-    from seqsolve.score import block_ordering
 
     spec = tmp_path / "s.toml"
     spec.write_text(
@@ -233,14 +233,21 @@ def test_references_are_printed_by_score_json_and_hold_to_first_principles(tmp_p
     assert result.exit_code == 0, result.output
     (row,) = json.loads(result.output)
     ref = row["references"]
-    assert set(ref) >= {"block_detection", "block_size", "random_estimation", "random_orderings", "estimation_bound"}
+    assert set(ref) >= {
+        "block_detection",
+        "block_size",
+        "block_placement",
+        "random_estimation",
+        "random_orderings",
+        "estimation_bound",
+    }
 
     def detection(s):
         x = np.hstack([hrf_regressors(s, [0, 1], 2.0), np.ones((len(s), 1))])
         return 1 / np.trace(linalg.inv(x.T @ x)[:2, :2])  # each-vs-baseline: C = I
 
     counts = np.array([6, 6, 6])
-    best = block_ordering(counts, 2, ref["block_size"])
+    best = layout_run(counts, 2, BlockLayout(ref["block_size"], ref["block_placement"]))
     assert ref["block_detection"] == pytest.approx(detection(best), rel=1e-6)
     assert row["detection"] == pytest.approx(detection(np.array(seq)), rel=1e-6)
     assert row["detection_vs_block"] == pytest.approx(detection(np.array(seq)) / detection(best), rel=1e-6)

@@ -11,6 +11,7 @@ import pytest
 from scipy import optimize
 from scipy.signal import max_len_seq
 
+from seqsolve.blocks import block_ordering
 from seqsolve.efficiency.fast import Evaluator
 from seqsolve.efficiency.grid import make_layout
 from seqsolve.efficiency.hrf import double_gamma, sampled_hrf
@@ -24,7 +25,6 @@ from seqsolve.efficiency.nuisance import cosine_drift
 from seqsolve.efficiency.reference import detection_matrix, fir_matrix, reference_scores
 from seqsolve.efficiency.setup import make_setup
 from seqsolve.io.tables import events_tsv
-from seqsolve.score import block_ordering
 from seqsolve.timing import make_schedules, trial_durations
 from tests.conftest import make_study
 

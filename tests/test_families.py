@@ -32,20 +32,27 @@ def test_block_designs_are_blocked_and_obey_the_rules():
     fam = block_designs(study)
     assert fam.possible
     for runs, label in zip(fam.designs, fam.labels):
-        b = int(label.split()[-1])
+        b = int(label.split(",")[0].split()[-1])
         assert b <= 6  # larger blocks break the max-run rule and are left out
         for r in runs:
-            lengths = stretches(r)
-            # blocks of b, except where a condition runs out (12 is not always a multiple of b)
+            assert stretches(r).max() <= 6
+            # the conditions' blocks: b trials, except where a condition runs out (12 is not always
+            # a multiple of b); the baseline's stretches depend on the placement
+            lengths = stretches(r[r != 3])
             assert lengths.max() <= b and np.median(lengths) == b
-    assert "blocks of 12" not in fam.labels
+    assert not any(lab.startswith("blocks of 12,") for lab in fam.labels)
+    assert {lab.split(", baseline ")[1] for lab in fam.labels} > {"after each"}  # more than one placement
 
 
 def test_block_family_says_which_rule_refuses_it():
-    rules = [{"kind": "max-run", "length": 1}, {"kind": "forbidden-transition", "first": "a", "then": "c"}]
+    rules = [
+        {"kind": "max-run", "length": 1},  # the baseline's trials apart, so something comes before each
+        {"kind": "forbidden-transition", "first": "a", "then": "c"},
+        {"kind": "forbidden-transition", "first": "b", "then": "c"},
+    ]
     study = make_study([10, 10, 10], rules, baseline=2)
     fam = block_designs(study)
-    assert not fam.possible and "no block size passes" in fam.note
+    assert not fam.possible and "no block layout passes" in fam.note
 
 
 def test_permuted_blocks_stay_near_the_block_design():

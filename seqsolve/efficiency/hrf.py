@@ -12,10 +12,14 @@ UNDERSHOOT_RATIO = 1.0 / 6.0
 LENGTH = 32.0  # seconds of response kept
 
 
-def double_gamma(t: np.ndarray) -> np.ndarray:
-    """The canonical response at times t (seconds), not normalised (its integral is 5/6)."""
+def double_gamma(
+    t: np.ndarray, peak: float = PEAK_SHAPE, undershoot: float = UNDERSHOOT_SHAPE, ratio: float = UNDERSHOOT_RATIO
+) -> np.ndarray:
+    """A double-gamma response at times t (seconds), not normalised: gamma densities of unit scale
+    and shapes `peak` and `undershoot` (modes at shape - 1 seconds), the second weighted `ratio`.
+    The defaults are the canonical shape (its integral is 5/6)."""
     t = np.asarray(t, dtype=float)
-    return gamma_pdf(t, PEAK_SHAPE) - UNDERSHOOT_RATIO * gamma_pdf(t, UNDERSHOOT_SHAPE)
+    return gamma_pdf(t, peak) - ratio * gamma_pdf(t, undershoot)
 
 
 def gamma_pdf(t: np.ndarray, shape: float) -> np.ndarray:
@@ -30,7 +34,10 @@ def gamma_pdf(t: np.ndarray, shape: float) -> np.ndarray:
 
 
 def sampled_hrf(
-    resolution: float, derivative: bool = False, custom: tuple[np.ndarray, float] | None = None
+    resolution: float,
+    derivative: bool = False,
+    custom: tuple[np.ndarray, float] | None = None,
+    shape: tuple[float, float, float] | None = None,
 ) -> np.ndarray:
     """Response kernels on a grid of `resolution` seconds, shape (n_basis, n_samples).
 
@@ -39,11 +46,12 @@ def sampled_hrf(
     sum(h) * resolution = 1, so a long block reaches a plateau of exactly 1 (nilearn scales its
     kernel the same way, to a unit sum on its grid). The temporal derivative (optional second row)
     is the finite difference of the first, scaled to the same sum of squares. A custom shape
-    (samples, step) is interpolated onto the grid and scaled the same way (unless its area is 0).
+    (samples, step) is interpolated onto the grid and scaled the same way (unless its area is 0);
+    `shape` (peak shape, undershoot shape, ratio) replaces the canonical double gamma's parameters.
     """
     t = np.arange(0.0, LENGTH, resolution)
     if custom is None:
-        h = double_gamma(t)
+        h = double_gamma(t) if shape is None else double_gamma(t, *shape)
     else:
         samples, step = custom
         ts = np.arange(len(samples)) * step

@@ -39,6 +39,7 @@ class AnalysisSetup:
     fir_step: float
     criterion: str = "A"
     notes: tuple[str, ...] = field(default=())
+    hrf_kind: str = "double-gamma"  # the spec's [analysis] hrf: "double-gamma", "double-gamma-derivative" or "custom"
 
     @property
     def n_basis(self) -> int:
@@ -123,4 +124,5 @@ def make_setup(study: Study) -> AnalysisSetup:
         fir_step=step,
         criterion=a.criterion,
         notes=tuple(notes),
+        hrf_kind="custom" if isinstance(a.hrf, CustomHRF) else a.hrf,
     )

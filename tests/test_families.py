@@ -200,6 +200,6 @@ length = 1
     )
     result = CliRunner().invoke(app, ["compare", str(spec), "--samples", "5", "--front", "0"])
     assert result.exit_code == 0, result.output
-    assert "block: none valid under the rules: no block size passes the rules" in result.output
+    assert "block: none valid under the rules: no block layout passes the rules" in result.output
     assert "m-sequence: not possible for these counts and run lengths" in result.output
     assert "random valid designs: sample 5 of 5" in result.output  # the progress line (stderr, mixed in here)

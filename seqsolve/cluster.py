@@ -152,12 +152,28 @@ def _run_dask_job(
     return run_job(study, references, options, job, _DaskChannel(names))
 
 
-def _prepare_worker(study: Study) -> None:
-    """Load the study's compiled kernels and pin BLAS to one thread, before the first job."""
+def _prepare_worker(study: Study) -> dict[str, str]:
+    """Load the study's compiled kernels and pin BLAS to one thread, before the first job; returns
+    the versions the worker's searches run on (seqsolve and what its designs depend on)."""
     from threadpoolctl import threadpool_limits
+
+    from seqsolve.generate import versions
 
     threadpool_limits(limits=1, user_api="blas")  # one search per process; a second BLAS thread takes a core
     warm_up(study)
+    return versions()
+
+
+def check_versions(mine: dict[str, str], workers: dict[str, dict[str, str]]) -> None:
+    """Every worker must run the versions this process runs: the same spec and seed give the same
+    designs only on the same code. Raises ClusterError naming the first worker that differs."""
+    for worker, theirs in sorted(workers.items()):
+        differ = [f"{k} {theirs.get(k, 'missing')} there, {v} here" for k, v in mine.items() if theirs.get(k) != v]
+        if differ:
+            raise ClusterError(
+                f"--cluster: worker {worker} runs other versions ({'; '.join(differ)}); its designs could "
+                "differ from this machine's, so install the same versions there"
+            )
 
 
 # ----------------------------------------------------------------------------------------------
@@ -176,7 +192,9 @@ class DaskBackend:
         self.queue, self.event = Queue(self.names[0], client=client), Event(self.names[1], client=client)
         self.token = token
         warm_up(study)  # compiled once here: a local cluster's workers load it from the cache
-        client.run(_prepare_worker, study)
+        from seqsolve.generate import versions
+
+        check_versions(versions(), client.run(_prepare_worker, study))
         # the study and the references travel to each worker once, not with each of the jobs
         self.payload = client.scatter([study, references, options], broadcast=True, hash=False)
         self.futures: list = []

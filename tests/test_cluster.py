@@ -224,3 +224,15 @@ def test_without_dask_the_error_says_how_to_install_it(tmp_path, monkeypatch):
     assert result.exit_code == 2, result.output
     assert 'pip install "seqsolve[cluster]"' in result.output
     assert not (tmp_path / "out").exists()
+
+
+def test_a_worker_on_other_versions_is_refused():
+    from seqsolve.cluster import ClusterError, check_versions
+
+    mine = {"python": "3.11.7", "seqsolve": "0.1.0", "numpy": "2.1.0"}
+    check_versions(mine, {"tcp://127.0.0.1:1": dict(mine), "tcp://127.0.0.1:2": dict(mine)})
+    other = dict(mine, numpy="1.26.4")
+    with pytest.raises(ClusterError, match=r"worker tcp://127.0.0.1:2 runs other versions \(numpy 1.26.4 there"):
+        check_versions(mine, {"tcp://127.0.0.1:1": dict(mine), "tcp://127.0.0.1:2": other})
+    with pytest.raises(ClusterError, match="seqsolve missing there"):
+        check_versions(mine, {"tcp://127.0.0.1:1": {"python": "3.11.7", "numpy": "2.1.0"}})

@@ -278,8 +278,8 @@ def generate(
             plan = f"search of {steps} rounds per participant" + (f" (at most {budget:g} s)" if budget else "")
         else:
             plan = "no search"
-        if where is not None and (steps or budget is not None):
-            plan += f", on {where.describe()}"
+        if where is not None:  # the cluster runs searches only: without one it is not started
+            plan += f", on {where.describe()}" if (steps or budget is not None) else " (--cluster not used)"
         typer.echo(
             f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), "
             f"{len(study.rules)} rule(s); {plan}",

@@ -81,21 +81,36 @@ def _distributed():
     return distributed
 
 
+def dask_config():
+    """dask's configuration module (dask comes with dask.distributed)."""
+    import dask.config
+
+    return dask.config
+
+
 @contextmanager
 def open_client(cluster: ClusterOptions) -> Iterator[Any]:
     """A distributed Client on a new LocalCluster (closed afterwards) or on a running scheduler."""
     distributed = _distributed()
     if cluster.address == "local":
         # workers started with Ctrl-C ignored, as local worker processes are (workers.py); loopback only
-        with signals_ignored():
-            local = distributed.LocalCluster(
-                n_workers=cluster.n_local(),
-                threads_per_worker=1,  # one search per process: each search holds one core
-                processes=True,
-                host="127.0.0.1",
-                dashboard_address=None,
-                silence_logs=logging.ERROR,
-            )
+        # no statistical profiler in the workers: it wakes every 10 ms to sample the search's thread,
+        # taking the GIL from it, and nobody reads its profiles here
+        try:
+            with signals_ignored(), dask_config().set({"distributed.worker.profile.enabled": False}):
+                local = distributed.LocalCluster(
+                    n_workers=cluster.n_local(),
+                    threads_per_worker=1,  # one search per process: each search holds one core
+                    processes=True,
+                    host="127.0.0.1",
+                    dashboard_address=None,
+                    silence_logs=logging.ERROR,
+                )
+        except Exception as exc:  # distributed says what went wrong only in its logs
+            raise ClusterError(
+                f"--cluster local: the local Dask cluster did not start ({type(exc).__name__}: "
+                f"{shorten(str(exc), 200)}); run without --cluster (--workers uses this machine's cores)"
+            ) from exc
         try:
             with distributed.Client(local) as client:
                 yield client

@@ -158,11 +158,8 @@ class _StepDisplay:
         self.last = 0.0
         self.timed = True  # False for a spec without timing.tr: counterbalance is then the only figure
         self.order = {label: i for i, label in enumerate(participants)}  # "participant k of P" for these
-        self.done, self.started = 0, time.perf_counter()
-
-    def participants_done(self, done: int, total: int, label: str) -> None:
-        """generate's progress: `done` participants finished (their time gives the estimate of what is left)."""
-        self.done = done
+        self.first: float | None = None  # when the participants' searches began
+        self.shown = 0  # participants reported done
 
     def _whose(self, label: str) -> str:
         """'participant 2 of 6 (02), about 40 s left' for a study's participant; the label alone otherwise."""
@@ -170,9 +167,9 @@ class _StepDisplay:
             return label
         total = len(self.order)
         text = f"participant {self.order[label] + 1} of {total} ({label})"
-        if self.done:
-            spent = time.perf_counter() - self.started
-            text += f", about {max(0.0, spent / self.done * (total - self.done)):.0f} s left in all"
+        if self.shown and self.first is not None:
+            spent = time.perf_counter() - self.first
+            text += f", about {_duration(max(0.0, spent / self.shown * (total - self.shown)))} left in all"
         return text
 
     def __call__(self, p) -> None:
@@ -201,6 +198,27 @@ class _StepDisplay:
     def end_line(self) -> None:
         if self.tty:
             typer.echo("", err=True)
+
+    def participants(self, done: int, total: int, label: str) -> None:
+        """Participants searched so far, with the time left at the pace so far (a line each)."""
+        now = time.perf_counter()
+        if done == 0 or self.first is None:
+            self.first = now
+        # the end comes twice with workers or a cluster: after the searches, and after the pass in order
+        if done == 0 or done == self.shown:
+            return
+        self.shown = done
+        took = now - self.first
+        left = f", about {_duration(took / done * (total - done))} left" if done < total else ""
+        line = f"  participant {done} of {total} searched, {_duration(took)} in{left}"
+        typer.echo(("\r" + line.ljust(100)) if self.tty else line, err=True)
+
+
+def _duration(seconds: float) -> str:
+    """12.3 s, 4.5 min or 1.2 h."""
+    if seconds < 90:
+        return f"{seconds:.1f} s"
+    return f"{seconds / 60:.1f} min" if seconds < 5400 else f"{seconds / 3600:.1f} h"
 
 
 @app.command()
@@ -232,6 +250,22 @@ def generate(
             min=1, max=1024, help="Processes searching participants side by side; the designs do not depend on it."
         ),
     ] = 1,
+    cluster: Annotated[
+        str | None,
+        typer.Option(
+            help="Search participants on a Dask cluster instead: 'local' (one started on this machine) or a "
+            "running scheduler's address (tcp://host:8786). Needs the cluster extra; the designs do not depend on it.",
+        ),
+    ] = None,
+    cluster_workers: Annotated[
+        int | None,
+        typer.Option(
+            min=1,
+            max=100_000,
+            help="With --cluster local: its worker processes (default: the cores here); with an address: "
+            "the workers to wait for before starting.",
+        ),
+    ] = None,
     time_limit: TimeLimit = 120.0,
     method: Annotated[str, typer.Option(help="Model: auto, counts or positions.")] = "auto",
     onset_files: Annotated[
@@ -266,9 +300,16 @@ def generate(
         raise typer.Exit(2)
     _check_seconds("--time-limit", time_limit)
     _check_seconds("--budget", budget)
+    if cluster is None and cluster_workers is not None:
+        typer.echo("error: --cluster-workers needs --cluster (local, or a scheduler's address)", err=True)
+        raise typer.Exit(2)
+    if cluster is not None and workers > 1:
+        typer.echo("error: give --workers or --cluster, not both (--cluster-workers sizes the cluster)", err=True)
+        raise typer.Exit(2)
     started = time.perf_counter()
     display = _StepDisplay()
     with _guarded(spec, display):
+        where = _cluster_options(cluster, cluster_workers)
         study = load_study(spec, seed=seed)
         display = _StepDisplay(study.participants)
         display.timed = study.spec.timing.tr is not None
@@ -279,6 +320,8 @@ def generate(
             plan = f"search of {steps} rounds per participant" + (f" (at most {budget:g} s)" if budget else "")
         else:
             plan = "no search"
+        if where is not None:  # the cluster runs searches only: without one it is not started
+            plan += f", on {where.describe()}" if (steps or budget is not None) else " (--cluster not used)"
         typer.echo(
             f"{study.spec.study.name}: {len(study.participants)} participant(s), {study.facts.n_runs} run(s), "
             f"{len(study.rules)} rule(s); {plan}",
@@ -290,18 +333,28 @@ def generate(
             out,
             force=force,
             options=solve,
-            progress=display.participants_done if (steps or budget is not None) else _progress(started),
+            progress=display.participants if (steps or budget is not None) else _progress(started),
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
             onset_files=onset_files,
             on_note=lambda text: (display.end_line(), typer.echo(f"  {text} ...", err=True)),
+            cluster=where,
         )
         display.end_line()
         _report_designs(designs, study, out, started)
     if designs.interrupted or _signal["received"] is not None:
         # the best designs so far were written; a script can still tell a cut-short search from a finished one
         raise typer.Exit(_interrupted_code())
+
+
+def _cluster_options(address: str | None, workers: int | None):
+    """--cluster and --cluster-workers as ClusterOptions (None: no cluster); a bad address exits 2."""
+    if address is None:
+        return None
+    from seqsolve.cluster import ClusterOptions
+
+    return ClusterOptions(address.strip(), workers)
 
 
 def _check_seconds(option: str, value: float | None) -> None:

@@ -9,6 +9,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -36,6 +37,9 @@ from seqsolve.solve import (
 from seqsolve.spec import Study
 from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
 from seqsolve.workers import Job, search_in_workers, search_participant
+
+if TYPE_CHECKING:
+    from seqsolve.cluster import ClusterOptions
 
 
 @dataclass
@@ -88,6 +92,7 @@ def design_study(
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
     on_note: Callable[[str], None] | None = None,
+    cluster: ClusterOptions | None = None,
 ) -> StudyDesigns:
     """Orderings and schedules for every participant (no files written).
 
@@ -98,6 +103,8 @@ def design_study(
     design is searched for (seqsolve.search); otherwise it is the first valid ordering found.
     Ctrl-C during a search keeps the best design found so far; participants not reached yet
     then get a valid design without search, and the result says so (interrupted).
+    cluster: search the participants on a Dask cluster (seqsolve.cluster) instead of
+    search.workers processes here; the designs are the same.
     """
     options = options or SolveOptions()
     search = search or SearchOptions(solve=options)
@@ -108,17 +115,18 @@ def design_study(
             Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
         )
     else:
-        designs = _searched(study, options, search, progress, on_step, on_note)
+        designs = _searched(study, options, search, progress, on_step, on_note, cluster)
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
     return designs
 
 
-def _searched(study, options, search, progress, on_step, on_note=None) -> StudyDesigns:
-    """Every participant's search, run on its own (in search.workers processes when above 1), then
-    a pass in participant order that searches again, knowing the earlier participants' designs,
-    for any design that repeats one of them (or breaks a participants-differ rule)."""
+def _searched(study, options, search, progress, on_step, on_note=None, cluster=None) -> StudyDesigns:
+    """Every participant's search, run on its own (in search.workers processes when above 1, or on
+    a Dask cluster), then a pass in participant order that searches again, knowing the earlier
+    participants' designs, for any design that repeats one of them (or breaks a participants-differ
+    rule). The pass runs here, whatever ran the searches, so the designs do not depend on it."""
     setup = scoring_setup(study)
     weights = Weights.from_study(study)
     method = choose_method(study, options)
@@ -130,7 +138,7 @@ def _searched(study, options, search, progress, on_step, on_note=None) -> StudyD
     try:
         # one yardstick for every participant: the first participant's seed
         out.references = References.for_study(study, setup, reference_seed(study.spec.study.seed))
-        if search.workers > 1 and n > 1:
+        if cluster is not None or (search.workers > 1 and n > 1):
             ended = []
 
             def on_done(job: Job) -> None:
@@ -138,7 +146,17 @@ def _searched(study, options, search, progress, on_step, on_note=None) -> StudyD
                 if progress:
                     progress(len(ended), n, job.label)
 
-            results, stopped = search_in_workers(study, out.references, search, jobs, search.workers, on_step, on_done)
+            def on_start() -> None:  # the workers are ready: the participants' clock starts
+                if progress:
+                    progress(0, n, "")
+
+            hooks = (on_step, on_done, on_start)
+            if cluster is not None:
+                from seqsolve.cluster import search_on_cluster
+
+                results, stopped = search_on_cluster(study, out.references, search, jobs, cluster, *hooks)
+            else:
+                results, stopped = search_in_workers(study, out.references, search, jobs, search.workers, *hooks)
             seconds = {i: r.seconds for i, r in results.items() if r is not None}
             if stopped:
                 raise KeyboardInterrupt
@@ -434,12 +452,14 @@ def generate(
     front: int = 0,
     onset_files: bool = False,
     on_note: Callable[[str], None] | None = None,
+    cluster: ClusterOptions | None = None,
 ) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
 
     front: also search the detection/estimation trade-off at this many weightings (first
     participant's timing) and write front.tsv. onset_files: also write onsets/ (per run, a
-    three-column text file per condition and a multiple-conditions .mat).
+    three-column text file per condition and a multiple-conditions .mat). cluster: search the
+    participants on a Dask cluster (seqsolve.cluster); the files are the same.
 
     Raises
     ------
@@ -453,7 +473,7 @@ def generate(
             study.source, [Problem("timing.tr", f"--front trades detection against estimation; {NO_TR_MESSAGE}")]
         )
     ensure_writable(outdir, force)
-    designs = design_study(study, options, progress, search, on_step, on_note)
+    designs = design_study(study, options, progress, search, on_step, on_note, cluster)
     points = None
     if front:
         from seqsolve.tradeoff import trade_off_front

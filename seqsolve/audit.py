@@ -7,7 +7,8 @@ from pathlib import Path
 
 import numpy as np
 
-from seqsolve.io.tables import read_designs
+from seqsolve.io.tables import read_trials
+from seqsolve.item_assign import check_items, rule_names
 from seqsolve.rules import Violation
 from seqsolve.spec import Study
 from seqsolve.timing import trial_durations
@@ -108,15 +109,34 @@ def audit(study: Study, paths: list[str | Path]) -> AuditReport:
     OrderingFileError
         When a file cannot be read against the spec.
     """
-    designs = read_designs(study, paths)
-    report = audit_orderings(study, {label: [codes for codes, _ in runs] for label, runs in designs.items()})
+    designs = read_trials(study, paths)
+    report = audit_orderings(study, {label: [codes for codes, _, _ in runs] for label, runs in designs.items()})
     timed = [
         replace(v, participant=label)
         for label, runs in designs.items()
-        for r, (codes, onsets) in enumerate(runs)
+        for r, (codes, onsets, _) in enumerate(runs)
         if onsets is not None
         for v in timing_violations(study, codes, onsets, r)
     ]
     report.rules.append(TIMING_RULE)
     report.violations.extend(timed)
+    if study.items is not None:
+        _audit_items(study, designs, report)
     return report
+
+
+def _audit_items(study: Study, designs: dict[str, list[tuple]], report: AuditReport) -> None:
+    """The item rules, for participants whose files give every trial's item (others are named as not checked)."""
+    report.rules += rule_names(study.items)
+    unchecked = []
+    for label, runs in designs.items():
+        items = [i for _, _, i in runs]
+        if any(i is None for i in items):
+            unchecked.append(label)
+            continue
+        index = study.participants.index(label) if label in study.participants else None
+        found = check_items(study.items, index, [codes for codes, _, _ in runs], items)
+        report.violations += [replace(v, participant=label) for v in found]
+    if unchecked:
+        shown = ", ".join(unchecked[:5]) + (" ..." if len(unchecked) > 5 else "")
+        report.rules.append(f"items of participant(s) {shown}: not checked (their files have no item column)")

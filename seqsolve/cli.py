@@ -350,8 +350,14 @@ def audit(
     else:
         typer.echo(
             f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
-            "its trial counts and its timing"
+            + (
+                "its trial counts, its timing and its items"
+                if study.items is not None
+                else "its trial counts and its timing"
+            )
         )
+        for note in (r for r in report.rules if r.endswith("(their files have no item column)")):
+            typer.echo(f"note: {note}")
         for v in report.violations:
             typer.echo(f"  {v.describe()}")
         typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")

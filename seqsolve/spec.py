@@ -24,6 +24,9 @@ from seqsolve.errors import Problem, SpecError, shorten
 from seqsolve.io import limits
 from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
 
+if typing.TYPE_CHECKING:  # pragma: no cover
+    from seqsolve.items import ItemCatalogue
+
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]*$"
 LABEL_PATTERN = r"^[A-Za-z0-9]+$"  # BIDS labels are alphanumeric
 # names that pandas' read_csv (and R, spreadsheets) turn into missing values
@@ -113,6 +116,11 @@ class Condition(Strict):
         Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
         Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
     ] = Field(default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}.")
+    items: list[Annotated[str, Field(min_length=1, max_length=TEXT_CHARS)]] | None = Field(
+        default=None,
+        max_length=100_000,
+        description="Stimulus items shown in this condition's trials (names; attributes come from [items] file).",
+    )
 
     @field_validator("name")
     @classmethod
@@ -318,6 +326,36 @@ class Objective(Strict):
         return self
 
 
+class AttributeRun(Strict):
+    """[[items.rules]] kind = "attribute-run": items sharing a value of an attribute, not too many in a row."""
+
+    kind: Literal["attribute-run"]
+    attribute: str = Field(min_length=1, max_length=NAME_CHARS, description="A column of the items file.")
+    length: int = Field(
+        ge=1, le=1000, description="Most trials in a row whose items share a value (1: never two in a row)."
+    )
+    label: str | None = Field(default=None, max_length=TEXT_CHARS, description="Optional name shown in reports.")
+
+
+class ItemsSection(Strict):
+    """[items]: stimulus items given to trials after the ordering is made (seqsolve/items.py)."""
+
+    file: str | None = Field(
+        default=None,
+        max_length=1000,
+        description="CSV or TSV file of items, relative to the spec: column 'item', optional 'condition', "
+        "any other columns are attributes ('stim_file' also goes to events.tsv).",
+    )
+    repeat: bool = Field(default=False, description="May an item be shown more than once to a participant.")
+    rotate: list[Annotated[str, Field(max_length=NAME_CHARS)]] = Field(
+        default_factory=list,
+        max_length=1000,
+        description="Conditions whose items form one pool, split into as many lists, rotated across "
+        "participants (Latin square): each item appears in each of these conditions equally often.",
+    )
+    rules: list[AttributeRun] = Field(default_factory=list, max_length=100)
+
+
 class RuleSet(Strict):
     """A file of ready-made rules in rules/."""
 
@@ -337,6 +375,7 @@ class Spec(Strict):
     rules: list[AnyRule] = Field(default_factory=list, max_length=10_000)
     analysis: Analysis = Field(default_factory=Analysis)
     objective: Objective = Field(default_factory=Objective)
+    items: ItemsSection | None = None
 
 
 @dataclass(frozen=True)
@@ -350,6 +389,7 @@ class Study:
     facts: StudyFacts
     participants: tuple[str, ...]
     spec_hash: str
+    items: ItemCatalogue | None = None  # stimulus items ([items], conditions' items), seqsolve/items.py
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -392,10 +432,15 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
     if seed is not None:
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
     facts = _facts(spec, source)
+    from seqsolve.items import load_items  # it reads the spec's models
+
+    catalogue = load_items(spec, Path(source), facts)
     canonical = json.dumps(
         {
-            "spec": spec.model_dump(mode="json", exclude={"rules", "include"}),
+            "spec": _hashed(spec),
             "rules": [r.model_dump(mode="json") for r in rules],
+            # the items file's content, so the hash names the items as well as the spec
+            **({"items": catalogue.digest()} if catalogue is not None else {}),
         },
         sort_keys=True,
     )
@@ -407,7 +452,20 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
         facts=facts,
         participants=participant_labels(spec.study.participants),
         spec_hash="sha256:" + hashlib.sha256(canonical.encode()).hexdigest(),
+        items=catalogue,
     )
+
+
+def _hashed(spec: Spec) -> dict:
+    """The spec as hashed: items fields left out when not given, so specs without items keep the hash
+    they had before items existed."""
+    out = spec.model_dump(mode="json", exclude={"rules", "include"})
+    if out.get("items") is None:
+        out.pop("items", None)
+    for c in out["conditions"]:
+        if c.get("items") is None:
+            c.pop("items", None)
+    return out
 
 
 def participant_labels(participants: int | list[str]) -> tuple[str, ...]:

@@ -364,6 +364,22 @@ def audit(
     raise typer.Exit(0 if report.valid else 1)
 
 
+def _say_items(study) -> None:
+    """What check can say of the items: they are given after the ordering, under these rules."""
+    if study.items is None:
+        return
+    from seqsolve.item_assign import rule_names
+    from seqsolve.items import balance_notes
+
+    cat = study.items
+    lists = f", in {len(cat.rotate)} lists rotated across participants" if cat.rotate else ""
+    typer.echo(f"{len(cat.names)} stimulus item(s){lists}, given to the trials after the ordering is made:")
+    for name in rule_names(cat):
+        typer.echo(f"  - {name}")
+    for note in balance_notes(cat, study.facts, len(study.participants)):
+        typer.echo(f"note: {note}")
+
+
 @app.command()
 def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
     """Say whether the rules can all hold; if not, name a smallest set that conflicts.
@@ -387,6 +403,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
         )
         for r, src in zip(study.rules, study.rule_sources):
             typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+        _say_items(study)
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())
     raise typer.Exit(1)

@@ -70,6 +70,7 @@ class BalancedTriples(Rule):
     across_runs: bool = Field(default=False, description="Balance the counts summed over a participant's runs.")
     cyclic: bool = Field(default=False, description="Count the two triples that wrap from a run's end to its start.")
     example = 'kind = "balanced-triples", tolerance = 1'
+    wide_model = True  # K^3 triple literals per position
 
     def sentence(self, facts: StudyFacts) -> str:
         scope = "over all runs of a participant" if self.across_runs else "in every run"

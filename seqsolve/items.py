@@ -104,6 +104,7 @@ def load_items(spec, spec_path: Path, facts: StudyFacts) -> ItemCatalogue | None
         content += text
     problems = _check_names(rows)
     rotate = _rotate_codes(section, facts, problems)
+    problems += _check_baseline(rows, rotate, facts)
     problems += [] if problems else _check_pool(rows, rotate)
     if not rows:
         problems.append(Problem("items", "no items given: list them in conditions' items or in [items] file"))
@@ -159,6 +160,24 @@ def _check_names(rows) -> list[Problem]:
         if len(problems) >= MAX_PROBLEMS:
             break
     return problems
+
+
+def _check_baseline(rows, rotate: list[int], facts: StudyFacts) -> list[Problem]:
+    """The baseline's trials are left out of the events files (as analysis tools expect), so an item
+    given to one could not be read back: refused, naming where it was given."""
+    base = facts.baseline
+    if base is None:
+        return []
+    where = next((w for _, cond, _, w in rows if cond == base), "items.rotate" if base in rotate else None)
+    if where is None:
+        return []
+    return [
+        Problem(
+            where,
+            f"the baseline '{facts.names[base]}' is left out of the events files, so its trials show no items; "
+            "give the items to another condition, or drop baseline = true",
+        )
+    ]
 
 
 def _rotate_codes(section, facts: StudyFacts, problems: list[Problem]) -> list[int]:

@@ -470,3 +470,9 @@ def test_too_few_inline_items_are_named_at_their_condition(tmp_path):
     result = runner.invoke(app, ["check", str(spec)])
     assert result.exit_code == 2
     assert "conditions[3].items" in result.output and "'probe' has 7 trials per participant" in result.output
+
+
+def test_the_baseline_cannot_show_items(tmp_path):
+    spec = write_spec(tmp_path, rotate='["light", "rest"]')
+    result = runner.invoke(app, ["check", str(spec)])
+    assert result.exit_code == 2 and "items.rotate" in result.output and "baseline 'rest'" in result.output

@@ -1,7 +1,7 @@
 """balanced-triples: seconds to a participant's first valid ordering, with and without the wide-model settings.
 
 The per-position model carries K^3 triple literals per position; for such models the driver skips
-CP-SAT's probing and symmetry detection (seqsolve/solve.py, _PositionsPath._params). This prints, side by
+CP-SAT's probing, symmetry detection and LP relaxation (seqsolve/solve.py, _PositionsPath._params). This prints, side by
 side in one run, the time with those settings and with CP-SAT's defaults, and beside them the same study
 under balanced-transitions (the counts model) for scale. Rules: balanced-triples within 1 (or
 balanced-transitions within 1) and max-run 3; 4 runs.

@@ -243,10 +243,13 @@ class _PositionsPath:
     def _params(self, seed: int) -> cp_model.CpSolver:
         solver = solver_params(seed, self.options)
         if self.wide:
-            # measured on 4 conditions x 192 trials with balanced-triples: a run's repair took 3.5 s, of
-            # which probing and symmetry detection (nothing found) took 2.5 s; 1.0 s without them
+            # measured (benchmarks/bench_triples.py): on balanced-triples models probing, symmetry detection
+            # and the LP relaxation cost seconds and pruned little; 4 conditions x 192 trials, 4 runs: 21 s
+            # to a first ordering with CP-SAT's defaults, 4.7 s without probing and symmetry, 3.2 s without
+            # the LP as well
             solver.parameters.cp_model_probing_level = 0
             solver.parameters.symmetry_level = 0
+            solver.parameters.linearization_level = 0
         return solver
 
     def build(self, fixed: list[np.ndarray] | None, earlier: list[list[np.ndarray]]) -> tuple[OrderingModel, list]:

@@ -409,6 +409,13 @@ BAD = [
         "item,shape\nobj00,cube,extra\n", "objects.csv", ["line 2", "3 fields but the header names 2"], id="extra-field"
     ),
     pytest.param("item\tshape\n" + "x" * 250 + "\tcube\n", "objects.tsv", ["line 2", "at most 200"], id="long-name"),
+    pytest.param(
+        "item,shape\nobj00," + "y" * 140_000 + "\n",
+        "objects.csv",
+        ["line 2", "cannot be read as a table"],
+        id="huge-field",
+    ),
+    pytest.param("item,shape\nobj00,cube\x00\n", "objects.csv", ["line 2"], id="nul-byte"),
 ]
 
 
@@ -476,3 +483,20 @@ def test_the_baseline_cannot_show_items(tmp_path):
     spec = write_spec(tmp_path, rotate='["light", "rest"]')
     result = runner.invoke(app, ["check", str(spec)])
     assert result.exit_code == 2 and "items.rotate" in result.output and "baseline 'rest'" in result.output
+
+
+def test_audit_of_a_participant_the_spec_does_not_name_checks_items_against_every_list(tmp_path):
+    spec = write_spec(tmp_path, length=1, participants=2)
+    out = tmp_path / "designs"
+    assert runner.invoke(app, ["generate", str(spec), "-o", str(out)]).exit_code == 0
+    text = (out / "orderings.csv").read_text().replace("01,", "77,").replace("sub-01", "sub-77")
+    (tmp_path / "other.csv").write_text(text)
+    audit = runner.invoke(app, ["audit", str(spec), str(tmp_path / "other.csv")])
+    assert audit.exit_code == 0, audit.output  # its list is unknown: any list of the condition will do
+    # but a probe item in a rotating condition is in no list of it
+    rows = text.splitlines()
+    n = next(i for i, r in enumerate(rows) if r.startswith("77,") and ",light," in r)
+    rows[n] = rows[n].rsplit(",", 1)[0] + ",p1"
+    (tmp_path / "other.csv").write_text("\n".join(rows) + "\n")
+    audit = runner.invoke(app, ["audit", str(spec), str(tmp_path / "other.csv")])
+    assert audit.exit_code == 1 and "item 'p1', not in its list" in audit.output, audit.output

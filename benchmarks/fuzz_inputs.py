@@ -125,7 +125,8 @@ def fuzz_files(n: int, rng: random.Random, tally: Tally, work: Path, hang: float
             path = work / f"sub-01_task-cue_run-{run}_events.tsv"
             path.write_bytes(mutate_table(events, rng, names, "\t"))
         payload = path.read_bytes()
-        tally.run(["audit", str(spec), str(path)], hang, f"file{i}-{path.name}", payload)
+        # --rank 3: the ranking's path runs on every hostile file too, at a small sample
+        tally.run(["audit", str(spec), str(path), "--rank", "3"], hang, f"file{i}-{path.name}", payload)
         tally.run(["score", str(spec), str(path), "--no-references"], hang, f"file{i}-{path.name}", payload)
         path.unlink()
         if (i + 1) % 500 == 0:

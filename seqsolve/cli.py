@@ -124,13 +124,56 @@ def _progress(started: float):
     return show
 
 
+class _Countdown:
+    """'<what> k of N, elapsed, about T s left' on stderr: rewritten in place on a terminal, else a line
+    every few seconds (and the first and last), so long runs are never silent and logs stay short."""
+
+    def __init__(self, what: str, every: float = 5.0):
+        self.what, self.every, self.tty = what, every, sys.stderr.isatty()
+        self.started = time.perf_counter()
+        self.last = -1e9
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.perf_counter()
+        if done not in (1, total) and now - self.last < (0.2 if self.tty else self.every):
+            return
+        self.last = now
+        spent = now - self.started
+        left = spent / done * (total - done) if done else 0.0
+        line = f"  {self.what} {done} of {total}, {spent:.1f} s" + (
+            f", about {left:.0f} s left" if done < total else ""
+        )
+        if self.tty:
+            typer.echo("\r" + line.ljust(80), err=True, nl=done >= total)
+        else:
+            typer.echo(line, err=True)
+
+
 class _StepDisplay:
     """One status line on stderr during the search: rewritten in place on a terminal, else a line
     every few seconds (so logs stay short)."""
 
-    def __init__(self):
+    def __init__(self, participants: tuple[str, ...] = ()):
         self.tty = sys.stderr.isatty()
         self.last = 0.0
+        self.timed = True  # False for a spec without timing.tr: counterbalance is then the only figure
+        self.order = {label: i for i, label in enumerate(participants)}  # "participant k of P" for these
+        self.done, self.started = 0, time.perf_counter()
+
+    def participants_done(self, done: int, total: int, label: str) -> None:
+        """generate's progress: `done` participants finished (their time gives the estimate of what is left)."""
+        self.done = done
+
+    def _whose(self, label: str) -> str:
+        """'participant 2 of 6 (02), about 40 s left' for a study's participant; the label alone otherwise."""
+        if label not in self.order:
+            return label
+        total = len(self.order)
+        text = f"participant {self.order[label] + 1} of {total} ({label})"
+        if self.done:
+            spent = time.perf_counter() - self.started
+            text += f", about {max(0.0, spent / self.done * (total - self.done)):.0f} s left in all"
+        return text
 
     def __call__(self, p) -> None:
         now = time.perf_counter()
@@ -141,15 +184,17 @@ class _StepDisplay:
         parts = (
             ""
             if f is None
+            else f"best {f.score:.4f} (counterbalance {f.counterbalance:.3f})"
+            if not self.timed
             else (
                 f"best {f.score:.4f} (detection {100 * f.detection_vs_block:.0f}% of block, "
                 f"estimation {f.estimation_vs_random:.2f}x random)"
             )
         )
         of = "" if p.iterations >= 10**12 else f"/{p.iterations}"  # a search to a budget has no round count
-        line = f"  {p.participant}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
+        line = f"  {self._whose(p.participant)}: round {p.iteration}{of}  {p.elapsed:5.1f} s  {parts}"
         if self.tty:
-            typer.echo("\r" + line.ljust(100)[:100], err=True, nl=False)
+            typer.echo("\r" + line.ljust(140)[:140], err=True, nl=False)
         else:
             typer.echo(line, err=True)
 
@@ -225,6 +270,8 @@ def generate(
     display = _StepDisplay()
     with _guarded(spec, display):
         study = load_study(spec, seed=seed)
+        display = _StepDisplay(study.participants)
+        display.timed = study.spec.timing.tr is not None
         steps = study.spec.objective.iterations if iterations is None else iterations
         if budget is not None and iterations is None:
             plan = f"search of {budget:g} s per participant"
@@ -243,11 +290,12 @@ def generate(
             out,
             force=force,
             options=solve,
-            progress=None if (steps or budget is not None) else _progress(started),
+            progress=display.participants_done if (steps or budget is not None) else _progress(started),
             search=SearchOptions(iterations=iterations, budget=budget, solve=solve, workers=workers),
             on_step=display,
             front=front,
             onset_files=onset_files,
+            on_note=lambda text: (display.end_line(), typer.echo(f"  {text} ...", err=True)),
         )
         display.end_line()
         _report_designs(designs, study, out, started)
@@ -265,7 +313,7 @@ def _check_seconds(option: str, value: float | None) -> None:
 
 def _report_designs(designs, study, out: Path, started: float) -> None:
     if designs and designs[0].figures is not None:
-        typer.echo(_designs_table(designs))
+        typer.echo(_designs_table(designs, study.spec.timing.tr is not None))
     for note in designs.notes:
         typer.echo(f"note: {note}")
     typer.echo(
@@ -276,7 +324,8 @@ def _report_designs(designs, study, out: Path, started: float) -> None:
     extra += f", {out}/onsets/" if (out / "onsets").exists() else ""
     typer.echo(
         f"  a BIDS dataset skeleton: {out}/dataset_description.json, {out}/sub-*/...events.tsv; "
-        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}"
+        f"for stimulus software {out}/stimulus/; {out}/orderings.csv, {out}/manifest.json{extra}; "
+        f"to read and share: {out}/report.html"
     )
 
 
@@ -288,7 +337,8 @@ def _table(head: list[str], rows: list[list[str]]) -> str:
     return "\n".join(out)
 
 
-def _designs_table(designs) -> str:
+def _designs_table(designs, timed: bool = True) -> str:
+    """The searched designs' figures; without a TR (timed False) detection and estimation show '-'."""
     head = ["participant", "score", "detection vs block", "estimation vs random", "counterbalance", "rounds", "stopped"]
     rows = []
     for d in designs:
@@ -296,25 +346,29 @@ def _designs_table(designs) -> str:
         if f is None:
             rows.append([d.label, "-", "-", "-", "-", "0", "not searched"])
             continue
+        stopped = info.get("stopped", "")
+        stopped = "not reached (first valid design)" if stopped == "not reached" else stopped
         rows.append(
             [
                 d.label,
                 f"{f.score:.4f}",
-                f"{100 * f.detection_vs_block:.1f}%",
-                f"{f.estimation_vs_random:.3f}x",
+                f"{100 * f.detection_vs_block:.1f}%" if timed else "-",
+                f"{f.estimation_vs_random:.3f}x" if timed else "-",
                 f"{f.counterbalance:.3f}",
                 str(info.get("iterations", 0)),
-                info.get("stopped", "") + (" (rescued)" if "rescued_from" in info else ""),
+                stopped + (" (rescued)" if "rescued_from" in info else ""),
             ]
         )
     text = _table(head, rows)
     spread = designs.spread()
     w = designs.weights
-    text += (
-        f"\nscore = {w.detection:.2f} x detection vs block + {w.estimation:.2f} x estimation vs random"
+    formula = (
+        f"{w.detection:.2f} x detection vs block + {w.estimation:.2f} x estimation vs random"
         + (f" + {w.counterbalance:.2f} x counterbalance" if w.counterbalance else "")
-        + (f"; spread across participants {100 * spread:.1f}%" if spread is not None else "")
+        if timed
+        else "counterbalance (no timing.tr: detection and estimation are not computed)"
     )
+    text += f"\nscore = {formula}" + (f"; spread across participants {100 * spread:.1f}%" if spread is not None else "")
     return text
 
 
@@ -322,11 +376,31 @@ def _designs_table(designs) -> str:
 def audit(
     spec: SpecArg,
     files: Annotated[
-        list[Path], typer.Argument(help="orderings.csv and/or BIDS *_events.tsv files.", show_default=False)
+        list[Path],
+        typer.Argument(
+            help="orderings.csv and/or BIDS *_events.tsv files, a participants.tsv (counterbalancing), "
+            "or an output folder (its orderings.csv and participants.tsv).",
+            show_default=False,
+        ),
     ],
     as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
+    rank: Annotated[
+        int,
+        typer.Option(
+            min=0,
+            max=100_000,
+            help="Rank each design among this many valid designs sampled under the same rules (seeded by the "
+            "spec's seed; about a second for 50 where the counts model applies, up to a minute otherwise; 0: no "
+            "ranking, no solver).",
+        ),
+    ] = 50,
 ) -> None:
-    """Check existing orderings against the spec's rules (exit 0 valid, 1 violations, 2 bad input).
+    """Check existing orderings against the spec's rules, and a study's counterbalanced assignment
+    against its [[counterbalance]] sections (exit 0 valid, 1 violations, 2 bad input).
+
+    Files may hold some of the runs only (e.g. one run of four): the runs present are checked and the
+    absent ones named. Each complete design is also ranked: the percent of valid designs, sampled under
+    the same rules, that score at or below it on the spec's [objective].
 
     Example: seqsolve audit examples/reward_cue.toml designs/orderings.csv
     """
@@ -335,32 +409,11 @@ def audit(
 
     with _guarded(spec):
         study = load_study(spec)
-        report = run_audit(study, files)
+        report = run_audit(study, files, rank, _Countdown("ranking: valid design"))
     if as_json:
-        typer.echo(
-            json.dumps(
-                {
-                    "valid": report.valid,
-                    "participants": report.participants,
-                    "violations": [v.__dict__ for v in report.violations],
-                },
-                indent=2,
-            )
-        )
+        typer.echo(json.dumps(_audit_json(report), indent=2))
     else:
-        typer.echo(
-            f"checked {len(report.participants)} participant(s) against the spec's {len(study.rules)} rule(s), "
-            + (
-                "its trial counts, its timing and its items"
-                if study.items is not None
-                else "its trial counts and its timing"
-            )
-        )
-        for note in (r for r in report.rules if r.endswith("(their files have no item column)")):
-            typer.echo(f"note: {note}")
-        for v in report.violations:
-            typer.echo(f"  {v.describe()}")
-        typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
+        _print_audit(study, report)
     raise typer.Exit(0 if report.valid else 1)
 
 
@@ -380,6 +433,54 @@ def _say_items(study) -> None:
         typer.echo(f"note: {note}")
 
 
+def _audit_json(report) -> dict:
+    return {
+        "valid": report.valid,
+        "participants": report.participants,
+        "absent_runs": report.absent,
+        "violations": [v.__dict__ for v in report.violations],
+        "ranks": [r.__dict__ for r in report.ranks],
+        "notes": report.notes,
+    }
+
+
+def _print_audit(study, report) -> None:
+    typer.echo(_audit_scope(study, report))
+    for label, runs in report.absent.items():
+        typer.echo(f"  participant {label}: run(s) {', '.join(map(str, runs))} not in the files; the others checked")
+    for v in report.violations:
+        typer.echo(f"  {v.describe()}")
+    for note in report.notes:
+        typer.echo(f"note: {note}")
+    if report.ranks:
+        n = report.ranks[0].samples
+        typer.echo(f"rank among {n} valid designs sampled under the same rules (score as generate steers by it):")
+        for r in report.ranks:
+            typer.echo(
+                f"  participant {r.participant}: score {r.score:.4f}, above or equal to {r.percentile:.0f}% of them"
+            )
+    typer.echo("valid: every rule holds" if report.valid else f"{len(report.violations)} violation(s)")
+
+
+def _audit_scope(study, report) -> str:
+    """What audit checked: orderings (rules, counts, timing, items) and/or a counterbalanced assignment."""
+    from seqsolve.audit import TIMING_RULE
+
+    n = len(report.participants)
+    factors = sum(r.startswith("counterbalance[") for r in report.rules)
+    names = [c.name for c in study.spec.counterbalance]
+    cb = f"its {len(names)} counterbalanced factor(s) ({', '.join(names)})"
+    if TIMING_RULE not in report.rules:
+        return f"checked the assignment of {n} participant(s) against {cb}"
+    checked = (
+        "its trial counts, its timing and its items" if study.items is not None else "its trial counts and its timing"
+    )
+    head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), {checked}"
+    if not factors and study.spec.counterbalance:
+        return head + f"; not {cb}: give the output folder or its participants.tsv for that"
+    return head + (f", and their assignment against {cb}" if factors else "")
+
+
 @app.command()
 def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
     """Say whether the rules can all hold; if not, name a smallest set that conflicts.
@@ -389,6 +490,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
 
     Example: seqsolve check examples/reward_cue.toml
     """
+    from seqsolve.rules._text import rule_line
     from seqsolve.solve import SolveOptions, check_study
     from seqsolve.spec import load_study
 
@@ -402,8 +504,9 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
             f"({result.method} model, {result.seconds:.2f} s):"
         )
         for r, src in zip(study.rules, study.rule_sources):
-            typer.echo(f"  - {src}: {r.sentence(study.facts)}")
+            typer.echo(f"  - {rule_line(src, r.label, r.sentence(study.facts))}")
         _say_items(study)
+        _echo_counterbalance(study)
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())
     raise typer.Exit(1)
@@ -446,6 +549,19 @@ def score(
         "(same counts and timing); vs bound: of the FIR bound where it holds (each-vs-baseline, SOA = TR, no ar1).\n"
         "cb max: largest |observed - ideal| pair count; H: next-trial entropy in bits."
     )
+
+
+def _echo_counterbalance(study) -> None:
+    """The [[counterbalance]] sections as sentences, with the study's counts (assignment from its seed)."""
+    from seqsolve.counterbalance import assign_study, crossing, sentence
+
+    found = assign_study(study)
+    if found:
+        typer.echo(f"across the {len(study.participants)} participant(s), from seed {study.spec.study.seed}:")
+    for a in found:
+        typer.echo(f"  - counterbalance[{a.index + 1}]: {sentence(a)}")
+    if crossing(found):
+        typer.echo(f"  - {crossing(found)}")
 
 
 def _check_scope(study) -> str:
@@ -537,7 +653,8 @@ def compare(
         if plot is not None:
             check_plot_path(plot, force)
         study = load_study(spec)
-        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display)
+        countdown = _Countdown("random valid designs: sample")
+        result = run_compare(study, samples, front, SearchOptions(iterations=iterations), display, countdown)
         display.end_line()
         if plot is not None:
             draw(result, plot, study.spec.study.name)
@@ -573,7 +690,7 @@ def compare(
     head = ["family", "designs", "best detection", "mean detection", "best estimation", "mean estimation"]
     typer.echo(_table(head, rows))
     for r in result.summary():
-        typer.echo(f"  {r['family']}: {r['note']}")
+        typer.echo(f"  {r['family']}: " + (f"{r['absent']}: " if r["absent"] else "") + r["note"])
     ref = result.references
     typer.echo(
         f"\ndetection as a share of the best block design's (blocks of {ref.block_size}, rules or not); "
@@ -581,6 +698,26 @@ def compare(
     )
     if plot is not None:
         typer.echo(f"wrote {plot}")
+
+
+@app.command()
+def report(
+    folder: Annotated[Path, typer.Argument(help="An output folder written by generate.", show_default=False)],
+    force: Annotated[bool, typer.Option(help="Replace an existing report.html.")] = False,
+) -> None:
+    """(Re)build FOLDER/report.html: one self-contained HTML page (pictures inline, no network) of the rules,
+    each participant's figures, a design matrix, transition counts and the detection/estimation plane.
+
+    It reads only the folder: manifest.json, orderings.csv, front.tsv (generate --front) and compare.json
+    (`seqsolve compare SPEC --json > FOLDER/compare.json`) where present.
+
+    Example: seqsolve report designs/ --force
+    """
+    from seqsolve.report import write_report
+
+    with _guarded(None):
+        path = write_report(folder, force)
+    typer.echo(f"wrote {path}")
 
 
 @app.command()

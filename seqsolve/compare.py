@@ -25,6 +25,7 @@ from seqsolve.families import (
     random_valid_designs,
 )
 from seqsolve.objective import References, Scorer, Weights
+from seqsolve.plots import FRONT_FAMILY, FrontMark, clouds_of, plane_figure, pyplot
 from seqsolve.search import Progress, SearchOptions
 from seqsolve.solve import derive_seed
 from seqsolve.spec import Study
@@ -40,6 +41,7 @@ class Point:
     label: str
     detection: float  # share of the best block design's detection (any block size, rules or not)
     estimation: float  # times the mean random ordering's estimation
+    weights: tuple[float, float] | None = None  # (detection, estimation) weights of a front point
 
 
 @dataclass
@@ -52,7 +54,7 @@ class Comparison:
     def summary(self) -> list[dict]:
         """One row per family: best detection, best estimation, how many designs, and the note."""
         rows = []
-        names = [f.name for f in self.families] + (["seqsolve front"] if self.front else [])
+        names = [f.name for f in self.families] + ([FRONT_FAMILY] if self.front else [])
         for name in names:
             pts = [p for p in self.points if p.family == name]
             fam = next((f for f in self.families if f.name == name), None)
@@ -65,9 +67,29 @@ class Comparison:
                     "mean_detection": float(np.mean([p.detection for p in pts])) if pts else None,
                     "mean_estimation": float(np.mean([p.estimation for p in pts])) if pts else None,
                     "note": fam.note if fam else f"{len(self.front)} weightings from detection to estimation",
+                    "absent": "" if pts else absence(fam),
                 }
             )
         return rows
+
+    def clouds(self) -> list:
+        """The families' points for the plane (seqsolve's front apart: see front_marks)."""
+        return clouds_of(self.summary(), [p.__dict__ for p in self.points])
+
+    def front_marks(self) -> list[FrontMark]:
+        return [
+            FrontMark(
+                p.weights.detection, p.weights.estimation, p.figures.detection_vs_block, p.figures.estimation_vs_random
+            )
+            for p in self.front
+        ]
+
+
+def absence(fam: Family | None) -> str:
+    """Why a family has no point: the rules refused every design, or it cannot exist for these counts."""
+    if fam is None or fam.refused_by_rules:
+        return "none valid under the rules"
+    return "not possible for these counts and run lengths"
 
 
 def compare(
@@ -76,11 +98,15 @@ def compare(
     front_points: int = 5,
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
+    on_sample: Callable[[int, int], None] | None = None,
 ) -> Comparison:
-    """Build and score every family, and seqsolve's front (front_points = 0: no front)."""
+    """Build and score every family, and seqsolve's front (front_points = 0: no front).
+
+    on_sample(k, samples) after each random valid design is drawn (for progress lines); on_step as
+    the search's (each front point is one search)."""
     setup = make_setup(study)
     seed = derive_seed(study.spec.study.seed, 0)
-    randoms = random_valid_designs(study, seed, samples)
+    randoms = random_valid_designs(study, seed, samples, on_sample)
     gaps = draw_gaps(study, randoms.designs[0], seed)
     refs = References.for_study(study, setup, seed)
     scorer = Scorer(study, Weights.of(1.0, 1.0), refs, seed, gaps, setup)
@@ -103,10 +129,9 @@ def compare(
     add(randoms)
     if front_points:
         out.front = trade_off_front(study, front_points, search, 0, on_step)
-        for i, p in enumerate(out.front, start=1):
-            out.points.append(
-                Point("seqsolve front", f"point {i}", p.figures.detection_vs_block, p.figures.estimation_vs_random)
-            )
+        for m in out.front_marks():
+            w = (m.weight_detection, m.weight_estimation)
+            out.points.append(Point(FRONT_FAMILY, m.label, m.detection, m.estimation, w))
     return out
 
 
@@ -124,54 +149,19 @@ def check_plot_path(path: str | Path, force: bool) -> Path:
 
 
 def plot(comparison: Comparison, path: str | Path, title: str) -> Path:
-    """Draw the detection-vs-estimation plane to a PNG or SVG file (written atomically)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    """Draw the detection-vs-estimation plane to a PNG or SVG file (written atomically), in the table's
+    units; the front shows its non-dominated points only, each named by its weights."""
     path = Path(path)
-    fig, ax = plt.subplots(figsize=(7.5, 5.5))
-    styles = {
-        "random valid": dict(marker=".", s=14, alpha=0.45, color="0.55", zorder=1),
-        "block": dict(marker="s", s=46, color="tab:red", zorder=3),
-        "permuted block": dict(marker="^", s=30, color="tab:orange", alpha=0.8, zorder=2),
-        "m-sequence": dict(marker="D", s=40, color="tab:green", zorder=3),
-    }
-    for fam in comparison.families:
-        pts = [p for p in comparison.points if p.family == fam.name]
-        if pts:
-            ax.scatter(
-                [p.detection for p in pts],
-                [p.estimation for p in pts],
-                label=f"{fam.name} ({len(pts)})",
-                **styles.get(fam.name, {}),
-            )
-    front = [p for p in comparison.points if p.family == "seqsolve front"]
-    if front:
-        ax.plot(
-            [p.detection for p in front],
-            [p.estimation for p in front],
-            "-o",
-            color="tab:blue",
-            label="seqsolve, detection to estimation weightings",
-            zorder=4,
-        )
-    ax.set_xlabel("detection: share of the best block design's")
-    ax.set_ylabel("estimation: times the mean random ordering's")
-    ax.set_title(title)
-    ax.grid(alpha=0.3)
-    ax.legend(fontsize=8, loc="best")
-    fig.tight_layout()
+    fig = plane_figure(comparison.clouds(), comparison.front_marks(), title)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
     os.close(fd)
     try:
-        fig.savefig(tmp, dpi=120)
+        fig.savefig(tmp, dpi=120, metadata={"Date": None} if path.suffix.lower() == ".svg" else {})
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
     finally:
-        plt.close(fig)
+        pyplot().close(fig)
     return path

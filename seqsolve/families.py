@@ -37,6 +37,7 @@ class Family:
     designs: list[list[np.ndarray]] = field(default_factory=list)  # each a list of runs, all valid
     labels: list[str] = field(default_factory=list)  # one per design, e.g. "blocks of 4"
     note: str = ""  # how it was built, or why it could not be
+    refused_by_rules: bool = False  # it could be built for these counts, but no design passed the rules
 
     @property
     def possible(self) -> bool:
@@ -66,6 +67,7 @@ def block_designs(study: Study) -> Family:
         fam.note = f"block sizes allowed by the rules: {', '.join(lab.split()[-1] for lab in fam.labels)}"
     else:
         b, why = refused[0]
+        fam.refused_by_rules = True
         fam.note = f"no block size passes the rules (blocks of {b}: {why})"
     return fam
 
@@ -101,6 +103,7 @@ def permuted_block_designs(
             continue
         fam.designs.append(runs)
         fam.labels.append(f"{share:.0%} swapped")
+    fam.refused_by_rules = not fam.designs
     fam.note = (
         f"{len(fam.designs)} of {n} valid" if fam.designs else f"none of {n} permutations passes the rules ({problem})"
     )
@@ -170,6 +173,7 @@ def m_sequence_designs(study: Study, seed: int, n_designs: int = 10) -> Family:
             continue
         fam.designs.append(runs)
         fam.labels.append("m-sequence")
+    fam.refused_by_rules = not fam.designs
     fam.note = (
         f"GF({q}), degree {n}: {len(fam.designs)} of {n_designs} shifts valid"
         if fam.designs
@@ -178,9 +182,10 @@ def m_sequence_designs(study: Study, seed: int, n_designs: int = 10) -> Family:
     return fam
 
 
-def random_valid_designs(study: Study, seed: int, n: int) -> Family:
+def random_valid_designs(study: Study, seed: int, n: int, on_sample=None) -> Family:
+    """n valid designs sampled from CP-SAT (duplicates dropped); on_sample(k, n) after each."""
     fam = Family("random valid")
-    fam.designs = sample_orderings(study, derive_seed(seed, 5000), n)
+    fam.designs = sample_orderings(study, derive_seed(seed, 5000), n, on_sample=on_sample)
     fam.labels = ["random"] * len(fam.designs)
     fam.note = f"{len(fam.designs)} distinct designs sampled from CP-SAT"
     return fam

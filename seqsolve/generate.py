@@ -13,8 +13,9 @@ from pathlib import Path
 import numpy as np
 
 from seqsolve.audit import audit_orderings
-from seqsolve.efficiency.setup import make_setup
-from seqsolve.errors import InternalError
+from seqsolve.counterbalance import assign_study, manifest_section, run_values
+from seqsolve.efficiency.setup import NO_TR_MESSAGE
+from seqsolve.errors import InternalError, Problem, SpecError
 from seqsolve.io.atomic import ensure_writable, write_folder
 from seqsolve.io.bids import bids_files
 from seqsolve.io.onsets import run_onset_files
@@ -22,7 +23,7 @@ from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
 from seqsolve.item_assign import assign_items, check_items, rule_names
 from seqsolve.items import balance_notes
-from seqsolve.objective import Figures, References, Scorer, Weights
+from seqsolve.objective import Figures, References, Scorer, Weights, scoring_setup
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
 from seqsolve.seeds import reference_seed
 from seqsolve.solve import (
@@ -34,7 +35,7 @@ from seqsolve.solve import (
     sample_orderings,
 )
 from seqsolve.spec import Study
-from seqsolve.timing import RunSchedule, make_schedules
+from seqsolve.timing import RunSchedule, draw_gaps, make_schedules
 from seqsolve.workers import Job, search_in_workers, search_participant
 
 
@@ -88,8 +89,12 @@ def design_study(
     progress: Callable[[int, int, str], None] | None = None,
     search: SearchOptions | None = None,
     on_step: Callable[[Progress], None] | None = None,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Orderings and schedules for every participant (no files written).
+
+    progress(done, total, label) as participants start (one process) or end (workers); on_note(text)
+    for what happens after a stop (the participants not reached get their first valid design).
 
     With the spec's [objective] iterations above 0 (or search.iterations), each participant's
     design is searched for (seqsolve.search); otherwise it is the first valid ordering found.
@@ -105,7 +110,7 @@ def design_study(
             Design(p.label, p.seed, p.method, p.runs, make_schedules(study, p.runs, p.seed), p.seconds) for p in found
         )
     else:
-        designs = _searched(study, options, search, progress, on_step)
+        designs = _searched(study, options, search, progress, on_step, on_note)
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
@@ -127,11 +132,11 @@ def _give_items(study: Study, designs: StudyDesigns) -> None:
     designs.notes.extend(balance_notes(study.items, study.facts, len(study.participants)))
 
 
-def _searched(study, options, search, progress, on_step) -> StudyDesigns:
+def _searched(study, options, search, progress, on_step, on_note=None) -> StudyDesigns:
     """Every participant's search, run on its own (in search.workers processes when above 1), then
     a pass in participant order that searches again, knowing the earlier participants' designs,
     for any design that repeats one of them (or breaks a participants-differ rule)."""
-    setup = make_setup(study)
+    setup = scoring_setup(study)
     weights = Weights.from_study(study)
     method = choose_method(study, options)
     out = StudyDesigns(weights=weights)
@@ -165,10 +170,17 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
                     raise KeyboardInterrupt
     except KeyboardInterrupt:
         out.interrupted = True
+    not_reached = [job for job in jobs if results.get(job.index) is None]
+    scorers: dict = {}  # the not-reached participants' scorer, shared where the timing is fixed
+    if out.interrupted and not_reached:
+        if on_note:
+            on_note(f"building first valid designs for the {len(not_reached)} participant(s) not reached")
+        if out.references is None:  # stopped before the yardstick was made: the table needs it
+            out.references = References.for_study(study, setup, reference_seed(study.spec.study.seed))
     for job in jobs:
         t0 = time.perf_counter()
         earlier = [d.runs for d in out]
-        args = (study, job.label, job.seed, method, earlier, options, t0)
+        args = (study, job.label, job.seed, method, earlier, options, t0, out, setup, scorers)
         result = results.get(job.index)
         if result is not None and result.stopped == "interrupted":
             out.interrupted = True
@@ -206,7 +218,7 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
             "depends on the machine, so a rerun may give other designs; a budget in iterations repeats exactly"
         )
     if out.interrupted:
-        missing = [d.label for d in out if d.figures is None]
+        missing = [d.label for d in out if (d.search or {}).get("stopped") == NOT_REACHED]
         out.notes.append(
             "search interrupted: each participant has the best design found before the stop"
             + (f"; participants {', '.join(missing)} got a valid design without search" if missing else "")
@@ -214,10 +226,23 @@ def _searched(study, options, search, progress, on_step) -> StudyDesigns:
     return out
 
 
-def _unsearched(study, label, seed, method, earlier, options, t0) -> Design:
-    """A valid design without search, for participants after the user's stop."""
+def _unsearched(study, label, seed, method, earlier, options, t0, designs: StudyDesigns, setup, scorers) -> Design:
+    """A valid design without search, for participants after the user's stop, with its figures (scored
+    as the searched ones, so the table and the manifest show them). scorers: {seed or None: Scorer},
+    one for all under a fixed soa (its evaluator is then built once, not once per participant)."""
     runs = sample_orderings(study, seed, 1, earlier, options)[0]
-    return Design(label, seed, method, runs, make_schedules(study, runs, seed), time.perf_counter() - t0)
+    gaps = draw_gaps(study, runs, seed)
+    key = None if gaps is None else seed
+    if key not in scorers:
+        scorers[key] = Scorer(study, designs.weights, designs.references, seed, gaps, setup)
+    figures = scorers[key].figures(runs)
+    info = {"iterations": 0, "stopped": NOT_REACHED, "stopped_by": "the stop came before this participant's search"}
+    schedules = make_schedules(study, runs, seed, gaps)
+    return Design(label, seed, method, runs, schedules, time.perf_counter() - t0, figures, info, gaps)
+
+
+#: why an unsearched participant's design has no search (after a stop)
+NOT_REACHED = "not reached"
 
 
 #: rounds of rescue for participants below the spread floor
@@ -270,8 +295,12 @@ def _even_out(study, designs: StudyDesigns, setup, search: SearchOptions, on_ste
 
 
 def efficiency_summary(study: Study, design: Design) -> dict:
-    """Detection and estimation per run and for all runs (no reference designs: kept quick)."""
+    """Detection and estimation per run and for all runs (no reference designs: kept quick); without
+    timing.tr only the sequence figures (largest pair-count deviation, next-trial entropy)."""
     from seqsolve.score import score_design
+
+    if study.spec.timing.tr is None:
+        return sequence_summary(study, design.runs)
 
     rows = score_design(study, design.label, design.runs, design.schedules, with_references=False)
     return {
@@ -285,19 +314,47 @@ def efficiency_summary(study: Study, design: Design) -> dict:
     }
 
 
+def sequence_summary(study: Study, runs: list[np.ndarray]) -> dict:
+    """Per run and for all runs: the largest deviation from ideal pair counts, the next-trial entropy."""
+    from seqsolve.efficiency.metrics import conditional_entropy, counterbalance_deviation
+
+    parts = [([r], f"{r + 1}") for r in range(len(runs))] + ([(list(range(len(runs))), "all")] if len(runs) > 1 else [])
+    return {
+        name: {
+            "counterbalance_max": round(
+                counterbalance_deviation([runs[r] for r in idx], study.facts.counts[idx])["max"], 9
+            ),
+            "entropy_bits": round(conditional_entropy([runs[r] for r in idx], study.facts.n_conditions), 9),
+        }
+        for idx, name in parts
+    }
+
+
+def _score_entry(study: Study, d: Design) -> dict:
+    """A participant's search figures; without timing.tr only the score and counterbalance mean anything."""
+    if d.figures is None:
+        return {}
+    score = d.figures.as_dict()
+    if study.spec.timing.tr is None:
+        score = {k: score[k] for k in ("score", "counterbalance")}
+    return {"score": score, "search": d.search}
+
+
 def manifest(study: Study, designs: list[Design]) -> dict:
     """What made these outputs: versions, spec hash, seeds, rule summary per participant."""
     rules = [
-        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind} for r, s in zip(study.rules, study.rule_sources)
+        {"source": s, "rule": r.sentence(study.facts), "kind": r.kind, "label": r.label}
+        for r, s in zip(study.rules, study.rule_sources)
     ]
     return {
         "tool": "seqsolve",
         "versions": versions(),
-        "spec": {"file": Path(study.source).name, "hash": study.spec_hash},
+        "spec": {"file": Path(study.source).name, "hash": study.spec_hash, "study": study.spec.study.name},
         "seed": study.spec.study.seed,
         "conditions": {n: int(c) for n, c in zip(study.names, study.facts.counts[0])},
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
+        "timing": study.spec.timing.model_dump(mode="json"),
         **({"items": _items_summary(study)} if study.items is not None else {}),
         "analysis": study.spec.analysis.model_dump(mode="json"),
         "objective": _objective_summary(study, designs),
@@ -309,7 +366,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
                 "rules_passed": len(rules),
                 "violations": 0,
                 "metrics": efficiency_summary(study, d),
-                **({"score": d.figures.as_dict(), "search": d.search} if d.figures is not None else {}),
+                **_score_entry(study, d),
                 "runs": [
                     {"run": r + 1, "trials": int(len(s.codes)), "volumes": s.n_volumes, "seconds": round(s.length, 6)}
                     for r, s in enumerate(d.schedules)
@@ -317,6 +374,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
             }
             for d in designs
         ],
+        **_counterbalance_summary(study, designs),
     }
 
 
@@ -336,12 +394,20 @@ def _items_summary(study: Study) -> dict:
     }
 
 
+def _counterbalance_summary(study: Study, designs: list[Design]) -> dict:
+    """The [[counterbalance]] sections with their orders and each participant's (none: no key)."""
+    if not study.spec.counterbalance:
+        return {}
+    return manifest_section(assign_study(study), [d.label for d in designs])
+
+
 def _objective_summary(study: Study, designs: list[Design]) -> dict:
     """What the search was steered by, and how even the participants came out."""
     out: dict = {"spec": study.spec.objective.model_dump(mode="json")}
     if isinstance(designs, StudyDesigns) and designs.weights is not None:
         out["weights"] = designs.weights.as_dict()
-        out["references"] = designs.references.as_dict() if designs.references else None
+        timed = study.spec.timing.tr is not None  # without a TR there is nothing to divide by
+        out["references"] = designs.references.as_dict() if designs.references and timed else None
         spread = designs.spread()
         out["spread"] = None if spread is None else round(spread, 9)
         out["interrupted"] = designs.interrupted
@@ -354,23 +420,33 @@ def _objective_summary(study: Study, designs: list[Design]) -> dict:
 def output_files(
     study: Study, designs: list[Design], front: list | None = None, onset_files: bool = False
 ) -> dict[str, str | bytes]:
-    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files);
-    onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
-    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"])
+    """{relative path: text or bytes} of the output folder (a BIDS dataset skeleton plus our own files,
+    report.html among them); onset_files: also the onsets/ folder (seqsolve.io.onsets)."""
+    cb = assign_study(study)
+    index = {label: i for i, label in enumerate(study.participants)}
+    columns = {a.section.name: [a.text_of(index[d.label]) for d in designs] for a in cb}
+    files = bids_files(study, [d.label for d in designs], versions()["seqsolve"], columns)
+    per_run = {d.label: [run_values(cb, index[d.label], r) for r in range(len(d.schedules))] for d in designs}
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
             items = d.items[r - 1] if d.items is not None else None
-            files[events_filename(study, d.label, r)] = events_tsv(study, s, items)
-            files[trials_filename(d.label, r)] = trials_csv(study, s, items)
+            runs_only = run_values(cb, index[d.label], r - 1, "runs")
+            files[events_filename(study, d.label, r)] = events_tsv(study, s, runs_only, items)
+            files[trials_filename(d.label, r)] = trials_csv(study, s, per_run[d.label][r - 1], items)
             if onset_files:
                 files.update(run_onset_files(study, d.label, r, s))
     with_items = {d.label: d.items for d in designs if d.items is not None}
-    files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs}, with_items or None)
+    files["orderings.csv"] = orderings_csv(
+        study, {d.label: d.schedules for d in designs}, per_run if cb else None, with_items or None
+    )
     if front:
         from seqsolve.tradeoff import front_tsv
 
         files["front.tsv"] = front_tsv(study, front)
     files["manifest.json"] = json.dumps(manifest(study, designs), indent=2) + "\n"
+    from seqsolve.report import REPORT_NAME, report_html  # matplotlib comes in only here
+
+    files[REPORT_NAME] = report_html(files)  # from the folder's own files, as `seqsolve report` rebuilds it
     return files
 
 
@@ -385,6 +461,7 @@ def generate(
     on_step: Callable[[Progress], None] | None = None,
     front: int = 0,
     onset_files: bool = False,
+    on_note: Callable[[str], None] | None = None,
 ) -> StudyDesigns:
     """Generate every participant's design and write the output folder atomically.
 
@@ -399,8 +476,12 @@ def generate(
     InfeasibleError, SolverTimeoutError
         When no valid ordering can be produced.
     """
+    if front and study.spec.timing.tr is None:  # before any search: the front is made of fMRI figures
+        raise SpecError(
+            study.source, [Problem("timing.tr", f"--front trades detection against estimation; {NO_TR_MESSAGE}")]
+        )
     ensure_writable(outdir, force)
-    designs = design_study(study, options, progress, search, on_step)
+    designs = design_study(study, options, progress, search, on_step, on_note)
     points = None
     if front:
         from seqsolve.tradeoff import trade_off_front

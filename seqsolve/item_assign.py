@@ -181,15 +181,21 @@ def _add_run_limits(cp, cat: ItemCatalogue, runs, signature, z) -> None:
 
 
 def check_items(
-    cat: ItemCatalogue, participant: int | None, runs: list[np.ndarray], items: list[np.ndarray]
+    cat: ItemCatalogue,
+    participant: int | None,
+    runs: list[np.ndarray | None],
+    items: list[np.ndarray | None],
 ) -> list[Violation]:
     """Violations of the item rules in one participant's runs (condition codes and item indices per
     run; item -1: none). participant None (a label not in the spec): an item may come from any of the
-    lists its condition can have."""
+    lists its condition can have. A run None (absent from the files audited) is skipped; the others
+    keep their run numbers, and an item repeated only with an absent run goes unseen."""
     out = []
     allowed = _allowed(cat, participant)
     seen: dict[int, list[tuple[int, int]]] = {}
     for r, (codes, shown) in enumerate(zip(runs, items)):
+        if codes is None or shown is None:
+            continue
         for p, (c, i) in enumerate(zip(codes.tolist(), shown.tolist())):
             if allowed[c] and i not in allowed[c]:
                 found = "no item" if i < 0 else f"item '{cat.names[i]}', not in its list for this participant"
@@ -227,6 +233,8 @@ def _run_violations(cat: ItemCatalogue, rule, items: list[np.ndarray]) -> list[V
     values = np.array(cat.attributes[rule.attribute] + ("",), dtype=object)
     out = []
     for r, shown in enumerate(items):
+        if shown is None:  # an absent run
+            continue
         vals = values[shown]  # -1 picks the trailing '' (no item: no value)
         for v in sorted(set(vals) - {""}):
             for start, length in runs_of(np.arange(len(vals)), vals == v):

@@ -6,6 +6,9 @@ A participant's score is the weighted mean of
   counterbalance  = 1 / (1 + RMS deviation of the first-order pair counts from ideal),
 with the weights of the spec's [objective]. All three read as plain fractions: 0.84 detection is
 "84 % of the block design's". No solver imports: this module only scores.
+
+A spec without timing.tr (EEG/behavioural) has no fMRI analysis: its Scorer has no setup, detection
+and estimation are 0 with weight 0 (spec.py refuses other weights), and only counterbalance steers.
 """
 
 from __future__ import annotations
@@ -21,6 +24,11 @@ from seqsolve.efficiency.setup import AnalysisSetup, make_setup
 from seqsolve.score import evaluator_for, onsets_fixed, references
 from seqsolve.spec import Study
 from seqsolve.timing import make_schedules, trial_durations
+
+
+def scoring_setup(study: Study) -> AnalysisSetup | None:
+    """The resolved [analysis], or None for a spec without timing.tr (nothing to score on volumes)."""
+    return None if study.spec.timing.tr is None else make_setup(study)
 
 
 @dataclass(frozen=True)
@@ -71,7 +79,10 @@ class References:
     random_estimation: float
 
     @classmethod
-    def for_study(cls, study: Study, setup: AnalysisSetup, seed: int) -> References:
+    def for_study(cls, study: Study, setup: AnalysisSetup | None, seed: int) -> References:
+        """The study's references; all 0 without an analysis (setup None), where nothing divides by them."""
+        if setup is None:
+            return cls(0.0, 0, 0.0)
         ref = references(study, setup, list(range(study.facts.n_runs)), seed)
         return cls(ref["block_detection"], int(ref["block_size"]), ref["random_estimation"])
 
@@ -98,9 +109,11 @@ class Scorer:
     ):
         self.study, self.weights, self.refs, self.seed = study, weights, refs, seed
         self.gaps = gaps
-        self.setup = setup or make_setup(study)
-        self.fixed = onsets_fixed(study)
-        self.direct = DirectScorer(self.setup)
+        self.timed = study.spec.timing.tr is not None
+        self.setup = (setup or make_setup(study)) if self.timed else None
+        # untimed: the score reads the labels only, so moving onsets change nothing
+        self.fixed = onsets_fixed(study) or not self.timed
+        self.direct = DirectScorer(self.setup) if self.timed else None
         self.lengths = [int(n) for n in study.facts.counts.sum(axis=1)]
         self.splits = np.cumsum(self.lengths)[:-1]
         self._evaluator: Evaluator | None = None
@@ -144,6 +157,8 @@ class Scorer:
     def score_many(self, designs: list[list[np.ndarray]]) -> np.ndarray:
         """Weighted scores of many designs (each a list of runs)."""
         cb = np.array([self.counterbalance(d) for d in designs]) if self.weights.counterbalance else 0.0
+        if not self.timed:
+            return self.combine(np.zeros(len(designs)), np.zeros(len(designs)), cb)
         if self.fixed:
             codes = np.array([np.concatenate(d) for d in designs])
             det, est = self.evaluator(designs[0]).score_many(codes, self.use_det, self.use_est)
@@ -156,6 +171,8 @@ class Scorer:
     def _one(self, runs: list[np.ndarray], detection: bool = True, estimation: bool = True) -> tuple[float, float]:
         """Both efficiencies of one design on its own schedule, exactly: when onsets move with the
         labels, building the design matrices directly is cheaper than an Evaluator."""
+        if not self.timed:
+            return 0.0, 0.0
         if self.fixed:
             return self.evaluator(runs).score(np.concatenate(runs))
         return self._direct(runs, self.gaps, detection, estimation)
@@ -214,6 +231,8 @@ class Scorer:
 
         if len(pairs) == 0:
             return np.zeros(0)
+        if not self.timed:
+            return self.score_many(swapped(np.arange(len(pairs))))
         det, est = self.evaluator(runs).swap_scores(codes, pairs, self.use_det, self.use_est)
         if self.fixed:
             cb = 0.0
@@ -231,6 +250,8 @@ class Scorer:
         into the concatenated runs) to each condition, (n, K), minus the current score. Exact for
         each single change on the current timing."""
         codes = np.concatenate(runs)
+        if not self.timed:  # counterbalance is not scored change by change, as with an analysis
+            return np.zeros((len(codes) if trials is None else len(trials), self.study.facts.n_conditions))
         ev = self.evaluator(runs)
         det, est = ev.change_scores(codes, self.use_det, self.use_est, trials)
         now = self.combine(*ev.score_many(codes[None], self.use_det, self.use_est), 0.0)[0]

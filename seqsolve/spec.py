@@ -20,6 +20,7 @@ from typing import Annotated, Literal, Union
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, ValidationInfo, field_validator, model_validator
 
+from seqsolve.counterbalance import Counterbalance, section_problems
 from seqsolve.errors import Problem, SpecError, shorten
 from seqsolve.io import limits
 from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
@@ -201,7 +202,11 @@ GapModel = Annotated[FixedGap | UniformGap | ExponentialGap | ChoiceGap, Field(d
 class Timing(Strict):
     """[timing]: TR and the spacing of trials, in seconds."""
 
-    tr: float = Field(gt=0, description="Repetition time in seconds.")
+    tr: float | None = Field(
+        default=None,
+        gt=0,
+        description="Repetition time in seconds; leave out for EEG/behavioural studies (no fMRI scoring).",
+    )
     soa: float | None = Field(default=None, gt=0, description="Fixed onset-to-onset time.")
     trial_duration: float | None = Field(default=None, gt=0, description="Default trial duration.")
     iti: GapModel | None = Field(default=None, description="Gap from one trial's end to the next onset.")
@@ -216,6 +221,8 @@ class Timing(Strict):
             raise ValueError("give exactly one of 'soa' (fixed onset-to-onset) or 'iti' (gap after each trial)")
         if self.iti is not None and self.trial_duration is None:
             raise ValueError("with 'iti', give 'trial_duration' (conditions may override it with 'duration')")
+        if self.volumes is not None and self.tr is None:
+            raise ValueError("'volumes' counts scanner volumes: give 'tr' too, or leave 'volumes' out")
         return self
 
     _bounded = _seconds("tr", "soa", "trial_duration", "grid", "lead_in", "lead_out")
@@ -375,6 +382,9 @@ class Spec(Strict):
     rules: list[AnyRule] = Field(default_factory=list, max_length=10_000)
     analysis: Analysis = Field(default_factory=Analysis)
     objective: Objective = Field(default_factory=Objective)
+    counterbalance: list[Counterbalance] = Field(
+        default_factory=list, max_length=20, description="Factors balanced over participants (run orders, mappings)."
+    )
     items: ItemsSection | None = None
 
 
@@ -426,9 +436,10 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
     """Validate a spec given as a dict (the parsed TOML); includes resolve relative to source."""
     spec = _validate(Spec, data, source)
     rules, sources = _gather_rules(spec, Path(source))
-    problems = _check_references(spec, rules, sources)
+    problems = _check_references(spec, rules, sources) + _check_counterbalance(spec) + _check_untimed(spec)
     if problems:
         raise SpecError(source, problems)
+    spec = _untimed_objective(spec)
     if seed is not None:
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
     facts = _facts(spec, source)
@@ -630,6 +641,100 @@ def _check_rule_values(rules: list[Rule], sources: list[str]) -> list[Problem]:
     return out
 
 
+#: column names a counterbalanced factor may not take: the output tables' own, and the events columns
+#: BIDS gives a meaning of its own (sample, response_time, value, HED, stim_file; BIDS 1.x, from memory),
+#: and item, the stimulus items' column
+TAKEN_COLUMNS = {
+    "participant",
+    "participant_id",
+    "run",
+    "position",
+    "condition",
+    "onset",
+    "duration",
+    "gap",
+    "trial_type",
+    "sample",
+    "response_time",
+    "value",
+    "hed",
+    "stim_file",
+    "item",
+}
+
+
+def _check_counterbalance(spec: Spec) -> list[Problem]:
+    """Each [[counterbalance]] section fits the study's runs and participants, and its name is a free column."""
+    factors = set(_level_map(spec))
+    n_participants = len(participant_labels(spec.study.participants))
+    out, seen = [], set()
+    for i, section in enumerate(spec.counterbalance, start=1):
+        where = f"counterbalance[{i}]"
+        if section.name in seen or section.name in factors or section.name.lower() in TAKEN_COLUMNS:
+            out.append(
+                Problem(
+                    f"{where}.name",
+                    f"'{section.name}' is already a column (a condition factor, another counterbalanced factor or "
+                    "a fixed column of the trial tables); choose another name",
+                )
+            )
+        seen.add(section.name)
+        out += [
+            Problem(f"{where}.{field}", message)
+            for field, message in section_problems(section, n_participants, spec.study.runs)
+        ]
+    return out
+
+
+#: [objective] weights that need an fMRI analysis, hence timing.tr
+TIMED_WEIGHTS = ("detection", "estimation")
+
+
+def _check_untimed(spec: Spec) -> list[Problem]:
+    """Without timing.tr there is no fMRI analysis: [analysis] and detection/estimation weights are refused."""
+    if spec.timing.tr is not None:
+        return []
+    out = []
+    if "analysis" in spec.model_fields_set:
+        out.append(
+            Problem(
+                "analysis",
+                "[analysis] describes an fMRI GLM, which needs the scanner's TR: give timing.tr, or leave "
+                "[analysis] out for an EEG/behavioural design",
+            )
+        )
+    given = spec.objective.model_fields_set
+    for name in TIMED_WEIGHTS:
+        if name in given and getattr(spec.objective, name) > 0:
+            out.append(
+                Problem(
+                    f"objective.{name}",
+                    f"{name} is an fMRI efficiency and needs timing.tr; without a TR the objective can weigh "
+                    f"counterbalance only: set {name} = 0 (or leave it out), or give timing.tr",
+                )
+            )
+    if not out and "counterbalance" in given and spec.objective.counterbalance <= 0:
+        out.append(
+            Problem(
+                "objective.counterbalance",
+                "without timing.tr the search steers by counterbalance only: give it a weight above 0, "
+                "or iterations = 0 for the first valid ordering without search",
+            )
+        )
+    return out
+
+
+def _untimed_objective(spec: Spec) -> Spec:
+    """Without timing.tr the unset detection/estimation weights default to 0 and counterbalance to 1."""
+    if spec.timing.tr is not None:
+        return spec
+    o = spec.objective
+    weights = {"detection": 0.0, "estimation": 0.0}
+    if "counterbalance" not in o.model_fields_set:
+        weights["counterbalance"] = 1.0
+    return spec.model_copy(update={"objective": o.model_copy(update=weights)})
+
+
 def _check_sizes(spec: Spec) -> list[Problem]:
     """Trials per participant, and a run's length in volumes and fine-grid samples, within the limits."""
     per_run = sum(c.trials for c in spec.conditions)
@@ -641,10 +746,10 @@ def _check_sizes(spec: Spec) -> list[Problem]:
         out.append(Problem("conditions", f"{total:,} trials per participant; {limits.TRIALS_PER_PARTICIPANT.hint()}"))
     seconds = _run_seconds(spec, per_run)
     t = spec.timing
-    volumes = t.volumes if t.volumes is not None else seconds / t.tr
+    volumes = t.volumes if t.volumes is not None else seconds / t.tr if t.tr is not None else 0
     if volumes > limits.VOLUMES_PER_RUN.value():
         out.append(Problem("timing", f"a run lasts about {volumes:,.0f} volumes; {limits.VOLUMES_PER_RUN.hint()}"))
-    samples = max(seconds, (t.volumes or 0) * t.tr) / spec.analysis.resolution
+    samples = max(seconds, (t.volumes or 0) * (t.tr or 0)) / spec.analysis.resolution
     if samples > limits.FINE_SAMPLES_PER_RUN.value():
         out.append(
             Problem(

@@ -13,14 +13,15 @@ from seqsolve.spec import ChoiceGap, ExponentialGap, FixedGap, Study, Timing, Un
 
 @dataclass(frozen=True)
 class RunSchedule:
-    """One run: condition codes, onsets and durations (seconds), its length and volume count."""
+    """One run: condition codes, onsets and durations (seconds), its length and volume count
+    (n_volumes and tr are None for a spec without timing.tr: an EEG/behavioural run has no volumes)."""
 
     codes: np.ndarray
     onsets: np.ndarray
     durations: np.ndarray
     length: float
-    n_volumes: int
-    tr: float
+    n_volumes: int | None
+    tr: float | None
 
 
 def trial_durations(study: Study) -> np.ndarray:
@@ -103,8 +104,14 @@ def _schedule(
                 ],
             )
         end = fixed_length
-    n_vol = t.volumes if t.volumes is not None else math.ceil(end / t.tr - 1e-9)
-    return RunSchedule(codes, np.round(onsets, 6), d, end, int(n_vol), t.tr)
+    return RunSchedule(codes, np.round(onsets, 6), d, end, _volumes(t, end), t.tr)
+
+
+def _volumes(t: Timing, end: float) -> int | None:
+    """Volumes of a run ending at end seconds: the declared count, enough to cover it, or None without a TR."""
+    if t.volumes is not None:
+        return int(t.volumes)
+    return None if t.tr is None else int(math.ceil(end / t.tr - 1e-9))
 
 
 def jitter_gaps(t: Timing, n: int, rng: np.random.Generator) -> np.ndarray:
@@ -191,5 +198,4 @@ def schedule_from_onsets(study: Study, codes: np.ndarray, onsets: np.ndarray) ->
     d = trial_durations(study)[codes]
     end = float(onsets[-1] + d[-1] + t.lead_out) if len(codes) else t.lead_in + t.lead_out
     length = t.volumes * t.tr if t.volumes is not None else end
-    n_vol = t.volumes if t.volumes is not None else math.ceil(end / t.tr - 1e-9)
-    return RunSchedule(np.asarray(codes), np.asarray(onsets, dtype=float), d, max(length, end), int(n_vol), t.tr)
+    return RunSchedule(np.asarray(codes), np.asarray(onsets, dtype=float), d, max(length, end), _volumes(t, end), t.tr)

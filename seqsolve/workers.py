@@ -22,9 +22,8 @@ from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
-from seqsolve.efficiency.setup import make_setup
 from seqsolve.errors import InternalError
-from seqsolve.objective import References, Scorer, Weights
+from seqsolve.objective import References, Scorer, Weights, scoring_setup
 from seqsolve.search import Progress, Search, SearchOptions, SearchResult, warm_up
 from seqsolve.spec import Study
 from seqsolve.timing import draw_gaps
@@ -49,9 +48,10 @@ def search_participant(
 ) -> SearchResult:
     """Search one participant's design (valid, and different from `earlier` participants' ones)."""
     earlier = earlier or []
-    setup = make_setup(study)
+    setup = scoring_setup(study)
     starts = Search.sample_starts(study, job.seed, earlier, options)
-    gaps = draw_gaps(study, starts[0], job.seed)
+    # no analysis (no TR): gaps do not bear on the score, so the search leaves them as drawn
+    gaps = draw_gaps(study, starts[0], job.seed) if setup is not None else None
     scorer = Scorer(study, Weights.from_study(study), references, job.seed, gaps, setup)
     return Search(study, scorer, job.label, job.seed, earlier, options, on_step).run(starts)
 

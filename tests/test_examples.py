@@ -8,6 +8,7 @@ import pytest
 from typer.testing import CliRunner
 
 from seqsolve.cli import app
+from seqsolve.spec import load_study
 
 EXAMPLES = sorted((Path(__file__).resolve().parents[1] / "examples").glob("*.toml"))
 runner = CliRunner()
@@ -28,7 +29,12 @@ def test_example_runs(spec, tmp_path):
     short = [] if spec.stem == "reward_cue" else ["--iterations", "10"]
     result = runner.invoke(app, ["generate", str(spec), "-o", str(out), *short])
     assert result.exit_code == 0, result.output
-    audit = runner.invoke(app, ["audit", str(spec), str(out / "orderings.csv")])
+    audit = runner.invoke(app, ["audit", str(spec), str(out / "orderings.csv"), "--rank", "5"])  # a small sample
     assert audit.exit_code == 0, audit.output
+    whole = runner.invoke(app, ["audit", str(spec), str(out)])  # with participants.tsv: the counterbalancing
+    assert whole.exit_code == 0, whole.output
     score = runner.invoke(app, ["score", str(spec), str(out / "orderings.csv"), "--no-references"])
+    if load_study(spec).spec.timing.tr is None:  # an EEG/behavioural spec: no fMRI figures, said plainly
+        assert score.exit_code == 2 and "timing.tr" in score.output, score.output
+        return
     assert score.exit_code == 0, score.output

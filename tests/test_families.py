@@ -158,3 +158,41 @@ fir_window = 10.0
     assert again.exit_code == 2 and "--force" in again.output
     bad = runner.invoke(app, ["compare", str(spec), "--plot", str(tmp_path / "plane.jpg")])
     assert bad.exit_code == 2 and ".png or .svg" in bad.output
+
+
+def test_compare_names_missing_families_and_why_and_shows_progress(tmp_path):
+    """No repeats and balanced transitions refuse every block design (blocks of 1 repeat the same three
+    pairs, larger blocks repeat a condition); 18 trials are no
+    3^n - 1, so no m-sequence exists: each gets its reason, in the table's notes and in the JSON."""
+    spec = tmp_path / "s.toml"
+    spec.write_text(
+        """
+[study]
+name = "missing families"
+task = "demo"
+participants = 1
+[[conditions]]
+name = "tone"
+trials = 6
+[[conditions]]
+name = "chirp"
+trials = 6
+[[conditions]]
+name = "sweep"
+trials = 6
+[timing]
+tr = 2.0
+soa = 2.0
+[[rules]]
+kind = "balanced-transitions"
+tolerance = 1
+[[rules]]
+kind = "max-run"
+length = 1
+"""
+    )
+    result = CliRunner().invoke(app, ["compare", str(spec), "--samples", "5", "--front", "0"])
+    assert result.exit_code == 0, result.output
+    assert "block: none valid under the rules: no block size passes the rules" in result.output
+    assert "m-sequence: not possible for these counts and run lengths" in result.output
+    assert "random valid designs: sample 5 of 5" in result.output  # the progress line (stderr, mixed in here)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import io
 import itertools
+import json
 from pathlib import Path
 
 import numpy as np
@@ -500,3 +501,49 @@ def test_audit_of_a_participant_the_spec_does_not_name_checks_items_against_ever
     (tmp_path / "other.csv").write_text("\n".join(rows) + "\n")
     audit = runner.invoke(app, ["audit", str(spec), str(tmp_path / "other.csv")])
     assert audit.exit_code == 1 and "item 'p1', not in its list" in audit.output, audit.output
+
+
+COUNTERBALANCE = """
+[[counterbalance]]
+name = "timbre"
+levels = ["sine", "square"]
+design = "latin"
+
+[[counterbalance]]
+name = "hand"
+levels = ["left", "right"]
+scope = "participants"
+"""
+
+
+def test_items_beside_counterbalanced_columns_in_every_table(tmp_path):
+    """Column order: the fixed columns, then the counterbalanced factors, then the items (last)."""
+    spec = write_spec(tmp_path, length=1, participants=4)
+    spec.write_text(spec.read_text(encoding="utf-8") + COUNTERBALANCE, encoding="utf-8")
+    out = tmp_path / "designs"
+    result = runner.invoke(app, ["generate", str(spec), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    head = (out / "orderings.csv").read_text().splitlines()[0]
+    assert head == "participant,run,position,condition,onset,duration,participant_id,timbre,hand,item"
+    events = (out / "sub-01" / "sub-01_task-items_run-1_events.tsv").read_text().splitlines()
+    assert events[0].split("\t") == ["onset", "duration", "trial_type", "timbre", "item", "stim_file"]
+    assert all(len(e.split("\t")) == 6 for e in events[1:])
+    stim = (out / "stimulus" / "sub-01_run-1_trials.csv").read_text().splitlines()[0]
+    assert stim == "position,condition,timbre,hand,item,shape,stim_file,onset,duration,gap"
+    sidecar = json.loads((out / "task-items_events.json").read_text())
+    assert {"timbre", "item", "stim_file"} <= set(sidecar)
+    # the folder: orderings with their items, and participants.tsv against [[counterbalance]]
+    audit = runner.invoke(app, ["audit", str(spec), str(out), "--rank", "0"])
+    assert audit.exit_code == 0, audit.output
+    assert "its items" in audit.output and "assignment against its 2 counterbalanced" in audit.output
+    # some runs absent: the items of the runs present are still checked, with their run numbers
+    tampered = [r for r in (out / "orderings.csv").read_text().splitlines() if not r.startswith("02,1,")]
+    objs = [n for n, r in enumerate(tampered) if ",obj" in r and r.startswith("02,2,")]
+    tampered[objs[1]] = tampered[objs[1]].rsplit(",", 1)[0] + "," + tampered[objs[0]].rsplit(",", 1)[1]
+    (tmp_path / "partial.csv").write_text("\n".join(tampered) + "\n")
+    audit = runner.invoke(app, ["audit", str(spec), str(tmp_path / "partial.csv"), "--json", "--rank", "0"])
+    assert audit.exit_code == 1, audit.output
+    report = json.loads(audit.output)
+    assert report["absent_runs"] == {"02": [1]}
+    repeats = [v for v in report["violations"] if v["rule"] == REPEAT_RULE]
+    assert [(v["participant"], v["run"]) for v in repeats] == [("02", 1)]  # run index 1: the spec's run 2

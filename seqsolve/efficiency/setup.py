@@ -10,6 +10,7 @@ import numpy as np
 
 from seqsolve.efficiency.contrasts import parse_contrast, weight_warning
 from seqsolve.efficiency.hrf import sampled_hrf
+from seqsolve.errors import Problem, SpecError
 from seqsolve.spec import CustomHRF, Study
 
 
@@ -68,13 +69,27 @@ def named_contrasts(kind: str, names: list[str]) -> tuple[np.ndarray, list[str]]
     return np.array(rows).reshape(-1, k), labels
 
 
+#: why detection/estimation scores cannot be computed for a spec without a TR, and what to do
+NO_TR_MESSAGE = (
+    "detection and estimation are fMRI figures computed on scanner volumes, and the spec gives no TR; "
+    "give timing.tr to score an fMRI design (audit and check work without one)"
+)
+
+
 def make_setup(study: Study) -> AnalysisSetup:
     """Resolve the spec's [analysis] section (defaults where it is silent).
 
     Warns (UserWarning) about contrasts whose weights do not cancel.
+
+    Raises
+    ------
+    SpecError
+        When the spec gives no timing.tr (an EEG/behavioural design has no fMRI analysis to score).
     """
     a = study.spec.analysis
     tr = study.spec.timing.tr
+    if tr is None:
+        raise SpecError(study.source, [Problem("timing.tr", NO_TR_MESSAGE)])
     base = study.facts.baseline
     modelled = tuple(c for c in range(study.facts.n_conditions) if c != base)
     names = [study.names[c] for c in modelled]

@@ -13,7 +13,7 @@ from seqsolve.spec import Study
 BIDS_VERSION = "1.10.0"
 
 #: seqsolve's own files and folders in the output, which are not BIDS (gitignore-style patterns)
-OWN_FILES = ("orderings.csv", "manifest.json", "front.tsv", "stimulus/", "onsets/")
+OWN_FILES = ("orderings.csv", "manifest.json", "front.tsv", "report.html", "compare.json", "stimulus/", "onsets/")
 
 
 def subject_id(label: str) -> str:
@@ -49,9 +49,30 @@ def bidsignore() -> str:
     return "\n".join(OWN_FILES) + "\n"
 
 
-def participants_tsv(labels: list[str]) -> str:
-    """participants.tsv: one participant_id per line, in the spec's order ('sub-01', ...)."""
-    return "participant_id\n" + "".join(f"{subject_id(label)}\n" for label in labels)
+def participants_tsv(labels: list[str], columns: dict[str, list[str]] | None = None) -> str:
+    """participants.tsv: one participant_id per line, in the spec's order ('sub-01', ...), then a
+    column per counterbalanced factor (columns: {name: one value per participant})."""
+    columns = columns or {}
+    head = "\t".join(["participant_id", *columns]) + "\n"
+    rows = ["\t".join([subject_id(label), *(v[i] for v in columns.values())]) + "\n" for i, label in enumerate(labels)]
+    return head + "".join(rows)
+
+
+def participants_json(study: Study) -> str:
+    """participants.json: what each counterbalanced factor's column holds, with its levels."""
+    out = {}
+    for c in study.spec.counterbalance:
+        what = (
+            "the participant's level"
+            if c.scope == "participants"
+            else "the participant's order of levels over runs, joined by '-' (run 1 first; it repeats in each "
+            f"block of {len(c.levels)} runs)"
+        )
+        out[c.name] = {
+            "Description": (c.description + "; " if c.description else "") + f"counterbalanced by seqsolve: {what}",
+            "Levels": {lev: f"level '{lev}' of '{c.name}'" for lev in c.levels},
+        }
+    return json.dumps(out, indent=2, ensure_ascii=False) + "\n"
 
 
 def events_sidecar_json(study: Study) -> str:
@@ -63,11 +84,18 @@ def events_sidecar_json(study: Study) -> str:
             continue
         factors = ", ".join(f"{f} = {v}" for f, v in c.levels.items())
         levels[c.name] = f"condition '{c.name}'" + (f" ({factors})" if factors else "")
+    start = "the first volume of the run" if study.spec.timing.tr is not None else "the start of the run"
     sidecar = {
-        "onset": {"Description": "trial onset from the first volume of the run", "Units": "s"},
+        "onset": {"Description": f"trial onset from {start}", "Units": "s"},
         "duration": {"Description": "trial duration", "Units": "s"},
         "trial_type": {"Description": "the trial's condition (baseline trials are omitted)", "Levels": levels},
     }
+    for c in study.spec.counterbalance:
+        if c.scope == "runs":  # the run's level stands on each of its rows (counterbalanced over participants)
+            sidecar[c.name] = {
+                "Description": (c.description + "; " if c.description else "") + "the run's level, counterbalanced",
+                "Levels": {lev: f"level '{lev}' of '{c.name}'" for lev in c.levels},
+            }
     if study.items is not None:
         sidecar["item"] = {"Description": "the stimulus item the trial shows, from the spec's [items] (n/a: none)"}
         if "stim_file" in study.items.attributes:
@@ -75,11 +103,17 @@ def events_sidecar_json(study: Study) -> str:
     return json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n"
 
 
-def bids_files(study: Study, labels: list[str], version: str) -> dict[str, str]:
-    """{relative path: text} of the dataset-level BIDS files for these participants."""
-    return {
+def bids_files(
+    study: Study, labels: list[str], version: str, columns: dict[str, list[str]] | None = None
+) -> dict[str, str]:
+    """{relative path: text} of the dataset-level BIDS files for these participants; columns: the
+    counterbalanced factors' values per participant (participants.tsv, described in participants.json)."""
+    files = {
         "dataset_description.json": dataset_description_json(study, version),
         ".bidsignore": bidsignore(),
-        "participants.tsv": participants_tsv(labels),
+        "participants.tsv": participants_tsv(labels, columns),
         f"task-{study.spec.study.task}_events.json": events_sidecar_json(study),
     }
+    if columns:
+        files["participants.json"] = participants_json(study)
+    return files

@@ -31,18 +31,23 @@ def events_filename(study: Study, label: str, run: int) -> str:
     return f"sub-{label}/sub-{label}_task-{study.spec.study.task}_run-{run}_events.tsv"
 
 
-def events_tsv(study: Study, sched: RunSchedule, items: np.ndarray | None = None) -> str:
-    """BIDS events table of one run: onset, duration, trial_type; the baseline's trials omitted.
+def events_tsv(
+    study: Study, sched: RunSchedule, extra: dict[str, str] | None = None, items: np.ndarray | None = None
+) -> str:
+    """BIDS events table of one run: onset, duration, trial_type, then the extra columns, then the item
+    columns; the baseline's trials omitted.
 
+    extra: {column: value} that holds for the whole run (a counterbalanced run level), on every row.
     items: each trial's item index (-1: none), adding the column item and, when the items file has
     one, BIDS' optional stim_file ('n/a' where a trial shows no item).
     """
-    extra = item_columns(study, items)
-    lines = ["\t".join(EVENTS_COLUMNS + tuple(extra))]
+    extra = extra or {}
+    shown = item_columns(study, items)
+    lines = ["\t".join([*EVENTS_COLUMNS, *extra, *shown])]
     for t, (c, on, du) in enumerate(zip(sched.codes, sched.onsets, sched.durations)):
         if c != study.facts.baseline:
-            cells = [(values[items[t]] or "n/a") if items[t] >= 0 else "n/a" for values in extra.values()]
-            lines.append("\t".join([_num(on), _num(du), study.names[c], *cells]))
+            cells = [(values[items[t]] or "n/a") if items[t] >= 0 else "n/a" for values in shown.values()]
+            lines.append("\t".join([_num(on), _num(du), study.names[c], *extra.values(), *cells]))
     return "\n".join(lines) + "\n"
 
 
@@ -58,23 +63,33 @@ def item_columns(study: Study, items: np.ndarray | None) -> dict[str, tuple[str,
 
 
 def orderings_csv(
-    study: Study, designs: dict[str, list[RunSchedule]], items: dict[str, list[np.ndarray]] | None = None
+    study: Study,
+    designs: dict[str, list[RunSchedule]],
+    extra: dict[str, list[dict[str, str]]] | None = None,
+    items: dict[str, list[np.ndarray]] | None = None,
 ) -> str:
     """Every trial of every participant, baseline included, in one table.
 
     The column participant_id ('sub-01') keeps the label text for readers that turn '01' in
-    the participant column into the number 1 (pandas, R, spreadsheets); it and then item (each
-    trial's stimulus item, empty where none; only when the study has items) come last so that the
-    columns before them stay where earlier versions put them.
+    the participant column into the number 1 (pandas, R, spreadsheets). Columns: participant, run,
+    position, condition, onset, duration, participant_id, then the extra columns, then item; the later
+    ones follow the columns earlier versions wrote, so those stay where they were.
+
+    extra: per participant and run, {column: value} holding for the whole run (counterbalanced factors).
+    items: per participant and run, each trial's item index (-1: none); adds the column item (the
+    trial's stimulus item, empty where none), last.
     """
+    extra = extra or {}
+    names = list(next(iter(extra.values()))[0]) if extra else []
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow((*ORDERING_COLUMNS, "participant_id", *([ITEM_COLUMN] if items else [])))
+    w.writerow((*ORDERING_COLUMNS, "participant_id", *names, *([ITEM_COLUMN] if items else [])))
     for label, scheds in designs.items():
         for r, s in enumerate(scheds, start=1):
+            tail = list(extra[label][r - 1].values()) if extra else []
             shown = items[label][r - 1] if items else None
             for p, (c, on, du) in enumerate(zip(s.codes, s.onsets, s.durations), start=1):
-                row = [label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}"]
+                row = [label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}", *tail]
                 if shown is not None:
                     row.append(study.items.names[shown[p - 1]] if shown[p - 1] >= 0 else "")
                 w.writerow(row)
@@ -100,14 +115,23 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
     return {label: [codes for codes, _ in runs] for label, runs in read_designs(study, paths).items()}
 
 
-def read_designs(study: Study, paths: list[str | Path]) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
-    """Like read_orderings, with each run's onsets in seconds where the files give every one (else None)."""
-    return {label: [(codes, onsets) for codes, onsets, _ in runs] for label, runs in read_trials(study, paths).items()}
+def read_designs(
+    study: Study, paths: list[str | Path], partial: bool = False
+) -> dict[str, list[tuple[np.ndarray, np.ndarray | None] | None]]:
+    """Like read_orderings, with each run's onsets in seconds where the files give every one (else None).
+
+    partial: a participant may have only some of the spec's runs; each absent run is None in the list
+    (which still has one entry per declared run)."""
+    return {
+        label: [None if run is None else run[:2] for run in runs]
+        for label, runs in read_trials(study, paths, partial).items()
+    }
 
 
-def read_trials(study: Study, paths: list[str | Path]) -> dict[str, list[tuple]]:
+def read_trials(study: Study, paths: list[str | Path], partial: bool = False) -> dict[str, list[tuple | None]]:
     """Like read_designs, each run with a third entry: its trials' item indices (-1: no item), or None
-    when the files give no item column (or the study has no items)."""
+    when the files give no item column (or the study has no items). partial as in read_designs: an
+    absent run is None."""
     paths = [Path(p) for p in paths]
     trials = _Trials()
     for f, path in enumerate(paths):
@@ -120,7 +144,7 @@ def read_trials(study: Study, paths: list[str | Path]) -> dict[str, list[tuple]]
                 trials.add(label, run, pos, code, onset, f, 0, item)
         else:
             _read_csv(study, path, f, trials)
-    return trials.designs(study, paths)
+    return trials.designs(study, paths, partial)
 
 
 class _Trials:
@@ -163,8 +187,9 @@ class _Trials:
         col = {k: np.frombuffer(self.ints[k], dtype=np.int64) for k in ("label", "run")}
         return bool(np.any((col["label"] == self.labels[label]) & (col["run"] == run)))
 
-    def designs(self, study: Study, paths: list[Path]) -> dict[str, list[tuple]]:
-        """Runs per participant in position order; a repeated or missing position or run raises."""
+    def designs(self, study: Study, paths: list[Path], partial: bool = False) -> dict[str, list[tuple | None]]:
+        """Runs per participant in position order, each (codes, onsets or None, items or None); a repeated
+        or missing position or run raises (a missing run is None instead when partial)."""
         col = {k: np.frombuffer(v, dtype=np.int64) if len(v) else np.zeros(0, np.int64) for k, v in self.ints.items()}
         onset = np.frombuffer(self.onset, dtype=float) if len(self.onset) else np.zeros(0)
         order = np.lexsort((col["file"], col["line"], col["pos"], col["run"], col["label"]))
@@ -200,6 +225,9 @@ class _Trials:
             )
         out = {}
         for index, runs in blocks.items():
+            if partial:
+                out[names[index]] = [runs.get(r) for r in range(1, study.facts.n_runs + 1)]
+                continue
             if sorted(runs) != list(range(1, study.facts.n_runs + 1)):
                 raise OrderingFileError(
                     where,
@@ -247,7 +275,8 @@ def _checked_onsets(study: Study, where: str, label: str, run: int, times: np.nd
                 )
             ],
         )
-    volumes = (times[-1] if len(times) else 0.0) / study.spec.timing.tr
+    tr = study.spec.timing.tr  # without one (EEG/behavioural) onsets are bounded as seconds when read
+    volumes = (times[-1] if len(times) else 0.0) / tr if tr is not None else 0.0
     if volumes > limits.VOLUMES_PER_RUN.value():
         raise OrderingFileError(
             where,

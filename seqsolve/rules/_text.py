@@ -10,3 +10,13 @@ def quoted(labels) -> str:
 
 def targets_phrase(items, what: str = "condition") -> str:
     return f"any one {what}" if items is None else quoted(items)
+
+
+def trials(n: int) -> str:
+    """'1 trial', '2 trials'."""
+    return f"{n} trial" if n == 1 else f"{n} trials"
+
+
+def rule_line(source: str, label: str | None, sentence: str) -> str:
+    """How check, audit and the report name a rule: its label where given, where it comes from, the sentence."""
+    return f"{label} ({source}): {sentence}" if label else f"{source}: {sentence}"

@@ -81,7 +81,8 @@ class Violation:
             shown = ", ".join(str(p + 1) for p in self.positions[:8])
             more = "" if len(self.positions) <= 8 else f", ... ({len(self.positions)} in all)"
             where.append(f"position {shown}{more}" if len(self.positions) == 1 else f"positions {shown}{more}")
-        return f"{'; '.join(where)}: {self.found} (rule: {self.rule})"
+        # no participant, run or position: a finding about the whole study (a counterbalanced assignment)
+        return f"{'; '.join(where) or 'the study'}: {self.found} (rule: {self.rule})"
 
 
 def runs_of(seq: np.ndarray, member: np.ndarray) -> list[tuple[int, int]]:

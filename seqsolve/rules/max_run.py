@@ -7,7 +7,7 @@ from typing import Literal
 import numpy as np
 from pydantic import Field
 
-from seqsolve.rules._text import targets_phrase
+from seqsolve.rules._text import targets_phrase, trials
 from seqsolve.rules.base import Rule, StudyFacts, Violation, runs_of
 
 
@@ -26,7 +26,7 @@ class MaxRun(Rule):
         return self.conditions or []
 
     def sentence(self, facts: StudyFacts) -> str:
-        return f"no more than {self.length} trials of {targets_phrase(self.conditions)} in a row"
+        return f"no more than {trials(self.length)} of {targets_phrase(self.conditions)} in a row"
 
     def encode(self, m, guard) -> None:
         L = self.length

@@ -7,7 +7,7 @@ from typing import Literal
 import numpy as np
 from pydantic import Field
 
-from seqsolve.rules._text import quoted
+from seqsolve.rules._text import quoted, trials
 from seqsolve.rules.base import Rule, StudyFacts, Violation
 
 
@@ -27,8 +27,8 @@ class MinGap(Rule):
 
     def sentence(self, facts: StudyFacts) -> str:
         if self.other:
-            return f"at least {self.gap} trials between {quoted(self.conditions)} and '{self.other}'"
-        return f"at least {self.gap} trials between two trials of {quoted(self.conditions)}"
+            return f"at least {trials(self.gap)} between {quoted(self.conditions)} and '{self.other}'"
+        return f"at least {trials(self.gap)} between two trials of {quoted(self.conditions)}"
 
     def encode(self, m, guard) -> None:
         g = self.gap

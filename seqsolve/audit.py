@@ -11,7 +11,8 @@ import numpy as np
 
 from seqsolve.counterbalance import assignment_problems
 from seqsolve.io.participants import PARTICIPANTS_FILE, is_participants_table, read_assignment
-from seqsolve.io.tables import read_designs
+from seqsolve.io.tables import read_trials
+from seqsolve.item_assign import check_items, rule_names
 from seqsolve.rules import Violation
 from seqsolve.spec import Study
 from seqsolve.timing import trial_durations
@@ -247,8 +248,9 @@ def audit(
 def _audit_orderings_files(
     study: Study, paths: list[Path], rank_samples: int, on_sample: Callable[[int, int], None] | None
 ) -> AuditReport:
-    """Every rule and the timing, on ordering files (some runs may be absent); ranked when asked."""
-    designs = read_designs(study, paths, partial=True)
+    """Every rule, the timing and the items, on ordering files (some runs may be absent); ranked when asked."""
+    trials = read_trials(study, paths, partial=True)
+    designs = {label: [None if r is None else r[:2] for r in runs] for label, runs in trials.items()}
     report = audit_orderings(
         study, {label: [None if r is None else r[0] for r in runs] for label, runs in designs.items()}
     )
@@ -261,9 +263,31 @@ def _audit_orderings_files(
     ]
     report.rules.append(TIMING_RULE)
     report.violations.extend(timed)
+    if study.items is not None:
+        _audit_items(study, trials, report)
     if rank_samples:
         _rank(study, designs, report, rank_samples, on_sample)
     return report
+
+
+def _audit_items(study: Study, trials: dict[str, list[tuple | None]], report: AuditReport) -> None:
+    """The item rules on the runs present, for participants whose files give every trial's item there
+    (others are named in the notes as not checked); absent runs (None) are skipped, keeping run numbers."""
+    report.rules += rule_names(study.items)
+    unchecked = []
+    for label, runs in trials.items():
+        present = [run for run in runs if run is not None]
+        if any(items is None for _, _, items in present):
+            unchecked.append(label)
+            continue
+        index = study.participants.index(label) if label in study.participants else None
+        codes = [None if run is None else run[0] for run in runs]
+        items = [None if run is None else run[2] for run in runs]
+        found = check_items(study.items, index, codes, items)
+        report.violations += [replace(v, participant=label) for v in found]
+    if unchecked:
+        shown = ", ".join(unchecked[:5]) + (" ..." if len(unchecked) > 5 else "")
+        report.notes.append(f"items of participant(s) {shown}: not checked (their files have no item column)")
 
 
 def _rank(study: Study, designs: dict, report: AuditReport, n_samples: int, on_sample) -> None:

@@ -470,6 +470,22 @@ def audit(
     raise typer.Exit(0 if report.valid else 1)
 
 
+def _say_items(study) -> None:
+    """What check can say of the items: they are given after the ordering, under these rules."""
+    if study.items is None:
+        return
+    from seqsolve.item_assign import rule_names
+    from seqsolve.items import balance_notes
+
+    cat = study.items
+    lists = f", in {len(cat.rotate)} lists rotated across participants" if cat.rotate else ""
+    typer.echo(f"{len(cat.names)} stimulus item(s){lists}, given to the trials after the ordering is made:")
+    for name in rule_names(cat):
+        typer.echo(f"  - {name}")
+    for note in balance_notes(cat, study.facts, len(study.participants)):
+        typer.echo(f"note: {note}")
+
+
 def _audit_json(report) -> dict:
     return {
         "valid": report.valid,
@@ -500,7 +516,7 @@ def _print_audit(study, report) -> None:
 
 
 def _audit_scope(study, report) -> str:
-    """What audit checked: orderings (rules, counts, timing) and/or a counterbalanced assignment."""
+    """What audit checked: orderings (rules, counts, timing, items) and/or a counterbalanced assignment."""
     from seqsolve.audit import TIMING_RULE
 
     n = len(report.participants)
@@ -509,7 +525,10 @@ def _audit_scope(study, report) -> str:
     cb = f"its {len(names)} counterbalanced factor(s) ({', '.join(names)})"
     if TIMING_RULE not in report.rules:
         return f"checked the assignment of {n} participant(s) against {cb}"
-    head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), its trial counts and its timing"
+    checked = (
+        "its trial counts, its timing and its items" if study.items is not None else "its trial counts and its timing"
+    )
+    head = f"checked {n} participant(s) against the spec's {len(study.rules)} rule(s), {checked}"
     if not factors and study.spec.counterbalance:
         return head + f"; not {cb}: give the output folder or its participants.tsv for that"
     return head + (f", and their assignment against {cb}" if factors else "")
@@ -539,6 +558,7 @@ def check(spec: SpecArg, time_limit: TimeLimit = 60.0) -> None:
         )
         for r, src in zip(study.rules, study.rule_sources):
             typer.echo(f"  - {rule_line(src, r.label, r.sentence(study.facts))}")
+        _say_items(study)
         _echo_counterbalance(study)
         raise typer.Exit(0)
     typer.echo(result.explanation.describe())

@@ -16,7 +16,8 @@ Forbidden pairs: balanced transitions ask each ordered pair (a, b) to occur at l
 ideal count less the tolerance; forbidden-transition, max-run 1 and min-gap rules keep some pairs from
 ever standing side by side, so such a pair with a positive lower bound cannot be served (only the wrap
 from a run's last trial to its first, counted by cyclic balance and by none of those rules, can give it,
-at most once a run).
+at most once a run). Balanced triples the same way: a triple (a, b, c) holding a pair that never stands side
+by side cannot stand in a row either, except as one of the two triples of a cyclic run that hold the wrap.
 
 The pigeonhole principle and the multinomial coefficient are common practice (no source needed).
 """
@@ -28,15 +29,30 @@ from math import ceil, factorial
 
 import numpy as np
 
-from seqsolve.rules import BalancedTransitions, ForbiddenTransition, MaxRun, MinGap, ParticipantsDiffer, Position
+from seqsolve.rules import (
+    BalancedTransitions,
+    BalancedTriples,
+    ForbiddenTransition,
+    MaxRun,
+    MinGap,
+    ParticipantsDiffer,
+    Position,
+)
 from seqsolve.rules.base import Target
 from seqsolve.rules.transitions import ideal_pair_counts
+from seqsolve.rules.triples import ideal_triple_counts
 from seqsolve.spec import Study
 
 
 def counting_conflict(study: Study):
     """The first conflict counting proves (an Explanation of seqsolve.solve), or None."""
-    return spacing_conflict(study) or stretch_conflict(study) or pair_conflict(study) or distinct_conflict(study)
+    return (
+        spacing_conflict(study)
+        or stretch_conflict(study)
+        or pair_conflict(study)
+        or triple_conflict(study)
+        or distinct_conflict(study)
+    )
 
 
 def distinct_conflict(study: Study):
@@ -211,5 +227,47 @@ def _pair_explanation(study: Study, i: int, j: int, runs: list[int], pair, low: 
         (j, study.rule_sources[j], study.rules[j].sentence(facts)),
     ]
     # each rule alone was not tried (balance alone can fail by itself), so no claim of a smallest set
+    note = "found by counting, before any solving; whether each holds alone was not tried"
+    return Explanation(True, False, sorted(rows), note)
+
+
+def triple_conflict(study: Study):
+    """Balanced triples that need a triple holding a pair another rule never lets stand side by side, or None."""
+    forbidders = never_adjacent(study)
+    for i, rule in enumerate(study.rules):
+        if not isinstance(rule, BalancedTriples):
+            continue
+        for runs, low, _ in rule.bounds(study.facts):
+            # a cyclic run's two wrapping triples each hold the wrap pair, which no forbidding rule covers
+            allowed = 2 * len(runs) if rule.cyclic else 0
+            for j, banned in forbidders:
+                # (a, b, c) holds the banned pair (a, b) or (b, c)
+                holds = banned[:, :, None] | banned[None, :, :]
+                hits = np.argwhere(holds & (low > allowed))
+                if len(hits):
+                    return _triple_explanation(
+                        study, i, j, runs, tuple(int(x) for x in hits[0]), int(low[tuple(hits[0])]), allowed
+                    )
+    return None
+
+
+def _triple_explanation(study: Study, i: int, j: int, runs: list[int], triple, low: int, allowed: int):
+    """Explanation naming the triple balance rule i (with its arithmetic) and the forbidding rule j."""
+    from seqsolve.solve import Explanation
+
+    facts, rule = study.facts, study.rules[i]
+    ideal = float(sum(ideal_triple_counts(facts.counts[r], rule.cyclic, rule.exclude_repeats)[triple] for r in runs))
+    where = f"run {runs[0] + 1} needs" if len(runs) == 1 else f"runs {runs[0] + 1} to {runs[-1] + 1} together need"
+    wrap = f"; the triples that wrap from last trials to first can give it at most {allowed}" if allowed else ""
+    a, b, c = (facts.names[x] for x in triple)
+    arithmetic = (
+        f" ({where} '{a}' then '{b}' then '{c}' at least floor({ideal:.2f}) - {rule.tolerance} = {low} time(s): "
+        f"ideal {ideal:.2f}, tolerance {rule.tolerance}; but {study.rule_sources[j]} never lets those trials stand "
+        f"side by side{wrap})"
+    )
+    rows = [
+        (i, study.rule_sources[i], rule.sentence(facts) + arithmetic),
+        (j, study.rule_sources[j], study.rules[j].sentence(facts)),
+    ]
     note = "found by counting, before any solving; whether each holds alone was not tried"
     return Explanation(True, False, sorted(rows), note)

@@ -23,6 +23,8 @@ from seqsolve.io.bids import bids_files
 from seqsolve.io.onsets import run_onset_files
 from seqsolve.io.stimulus import trials_csv, trials_filename
 from seqsolve.io.tables import events_filename, events_tsv, orderings_csv
+from seqsolve.item_assign import assign_items, check_items, rule_names
+from seqsolve.items import balance_notes
 from seqsolve.objective import Figures, References, Scorer, Weights, scoring_setup
 from seqsolve.search import STOPPED_BY, Judge, Progress, Search, SearchOptions, SearchResult
 from seqsolve.seeds import reference_seed
@@ -55,6 +57,7 @@ class Design:
     figures: Figures | None = None
     search: dict | None = None  # iterations, why it stopped, improving steps by kind
     gaps: list[np.ndarray] | None = None  # the gaps the search settled on (jittered timing)
+    items: list[np.ndarray] | None = None  # item index of each trial per run (-1: none), seqsolve/items.py
 
 
 class StudyDesigns(list):
@@ -119,7 +122,22 @@ def design_study(
     report = audit_orderings(study, {d.label: d.runs for d in designs})
     if not report.valid:  # the solver layer already checked; this is the outputs' own guard
         raise InternalError(f"generated designs fail the audit: {report.violations[:3]}")
+    _give_items(study, designs)
     return designs
+
+
+def _give_items(study: Study, designs: StudyDesigns) -> None:
+    """Each design's stimulus items (a second stage after the ordering, from the participant's seed),
+    judged by the independent check; what the lists cannot balance goes into the notes."""
+    if study.items is None:
+        return
+    for d in designs:
+        index = study.participants.index(d.label)
+        d.items = assign_items(study.items, index, d.label, d.runs, d.seed)
+        broken = check_items(study.items, index, d.runs, d.items)
+        if broken:
+            raise InternalError(f"items given to participant {d.label} fail their check: {broken[:3]}")
+    designs.notes.extend(balance_notes(study.items, study.facts, len(study.participants)))
 
 
 def _searched(study, options, search, progress, on_step, on_note=None, cluster=None) -> StudyDesigns:
@@ -362,6 +380,7 @@ def manifest(study: Study, designs: list[Design]) -> dict:
         "baseline": None if study.facts.baseline is None else study.names[study.facts.baseline],
         "rules": rules,
         "timing": study.spec.timing.model_dump(mode="json"),
+        **({"items": _items_summary(study)} if study.items is not None else {}),
         "analysis": study.spec.analysis.model_dump(mode="json"),
         "objective": _objective_summary(study, designs),
         "participants": [
@@ -381,6 +400,22 @@ def manifest(study: Study, designs: list[Design]) -> dict:
             for d in designs
         ],
         **_counterbalance_summary(study, designs),
+    }
+
+
+def _items_summary(study: Study) -> dict:
+    """The items' source and digest, the lists they rotate in, the item rules and what stays unbalanced."""
+    cat = study.items
+    section = study.spec.items
+    return {
+        "file": section.file if section is not None else None,
+        "digest": cat.digest(),
+        "items": len(cat.names),
+        "repeat": cat.repeat,
+        "rotate": [study.names[c] for c in cat.rotate],
+        "list_size": len(cat.pool[0]) if cat.pool else None,
+        "rules": rule_names(cat),
+        "notes": balance_notes(cat, study.facts, len(study.participants)),
     }
 
 
@@ -423,12 +458,16 @@ def output_files(
     per_run = {d.label: [run_values(cb, index[d.label], r) for r in range(len(d.schedules))] for d in designs}
     for d in designs:
         for r, s in enumerate(d.schedules, start=1):
+            items = d.items[r - 1] if d.items is not None else None
             runs_only = run_values(cb, index[d.label], r - 1, "runs")
-            files[events_filename(study, d.label, r)] = events_tsv(study, s, runs_only)
-            files[trials_filename(d.label, r)] = trials_csv(study, s, per_run[d.label][r - 1])
+            files[events_filename(study, d.label, r)] = events_tsv(study, s, runs_only, items)
+            files[trials_filename(d.label, r)] = trials_csv(study, s, per_run[d.label][r - 1], items)
             if onset_files:
                 files.update(run_onset_files(study, d.label, r, s))
-    files["orderings.csv"] = orderings_csv(study, {d.label: d.schedules for d in designs}, per_run if cb else None)
+    with_items = {d.label: d.items for d in designs if d.items is not None}
+    files["orderings.csv"] = orderings_csv(
+        study, {d.label: d.schedules for d in designs}, per_run if cb else None, with_items or None
+    )
     if front:
         from seqsolve.tradeoff import front_tsv
 

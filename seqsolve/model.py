@@ -29,6 +29,7 @@ class OrderingModel:
         self.x: list[np.ndarray] = []
         self.given: list[np.ndarray] = []
         self._pairs: dict[int, np.ndarray] = {}
+        self._triples: dict[tuple[int, bool], np.ndarray] = {}
         self._groups: dict[tuple[int, tuple[int, ...]], np.ndarray] = {}
         for r in range(facts.n_runs):
             n = facts.run_length(r)
@@ -106,6 +107,60 @@ class OrderingModel:
                     self.cp.add(sum(ys[p, :, a].tolist()) == xs[p + 1, a])
             self._pairs[run] = ys
         return self._pairs[run]
+
+    def triples(self, run: int, cyclic: bool = False) -> np.ndarray:
+        """Literals z[p, a, b, c] = 'a at p, b at p+1, c at p+2', shape (n_triples, K, K, K), made once.
+
+        Channelled linearly on the pair literals (triple flow): summed over c they are the pair
+        (p, p+1), summed over a the pair (p+1, p+2); with one pair true at each place, exactly the
+        triple standing there is true. With cyclic (runs of 3 trials or more) two more rows hold
+        the triples that wrap, (n-2, n-1, 0) and (n-1, 0, 1), each an AND of its three one-hot literals.
+        """
+        key = (run, cyclic)
+        if key not in self._triples:
+            xs, ys = self.x[run], self.pairs(run)
+            n, k = xs.shape
+            rows = [self._triple_row(run, p, ys) for p in range(max(n - 2, 0))]
+            if cyclic and n >= 3:
+                rows += [self._and3(run, xs[n - 2], xs[n - 1], xs[0]), self._and3(run, xs[n - 1], xs[0], xs[1])]
+            self._triples[key] = np.array(rows, dtype=object).reshape(len(rows), k, k, k)
+        return self._triples[key]
+
+    def _triple_row(self, run: int, p: int, ys: np.ndarray) -> np.ndarray:
+        k = self.facts.n_conditions
+        given = self.given[run]
+        zs = np.empty((k, k, k), dtype=object)
+        if (given[p : p + 3] >= 0).all():
+            # all three trials fixed: constants
+            zs[...] = self.false
+            zs[given[p], given[p + 1], given[p + 2]] = self.true
+            return zs
+        names = self.facts.names
+        for a in range(k):
+            for b in range(k):
+                for c in range(k):
+                    zs[a, b, c] = self.cp.new_bool_var(
+                        f"run{run + 1}_pos{p + 1}_{names[a]}_then_{names[b]}_then_{names[c]}"
+                    )
+        for a in range(k):
+            for b in range(k):
+                # the triples starting with pair (a, b) at p, and those ending with it at p+1
+                self.cp.add(sum(zs[a, b, :].tolist()) == ys[p, a, b])
+                self.cp.add(sum(zs[:, a, b].tolist()) == ys[p + 1, a, b])
+        return zs
+
+    def _and3(self, run: int, first: np.ndarray, second: np.ndarray, third: np.ndarray) -> np.ndarray:
+        """Literals w[a, b, c] = first[a] AND second[b] AND third[c] (the wrap triples)."""
+        k = self.facts.n_conditions
+        w = np.empty((k, k, k), dtype=object)
+        for a in range(k):
+            for b in range(k):
+                for c in range(k):
+                    w[a, b, c] = self.cp.new_bool_var(f"run{run + 1}_wrap_{a}_{b}_{c}")
+                    self.cp.add_bool_or([~first[a], ~second[b], ~third[c], w[a, b, c]])
+                    for lit in (first[a], second[b], third[c]):
+                        self.cp.add_implication(w[a, b, c], lit)
+        return w
 
     def fix(self, runs: list[np.ndarray], guard=None) -> None:
         """Fix an ordering into the model (used to test the checks against the encodings)."""

@@ -164,6 +164,73 @@ def _pairs_ok(t, s, r, i, j):
 
 
 @njit(cache=True)
+def _triple_starts(t, r, i, j, cyclic, out):
+    """First positions p of the triples (p, p+1, p+2) holding trial i or j; with cyclic counts
+    (runs of 3 or more) positions wrap around the run. Returns how many were written to out (at
+    most 6). Triples of runs shorter than 3 do not exist."""
+    lo = t.run_start[r]
+    n_run = t.run_len[r]
+    n = 0
+    if n_run < 3:
+        return 0
+    for x in (i, j):
+        for back in range(3):
+            p = x - back
+            if cyclic:
+                p = lo + (p - lo) % n_run
+            elif p < lo or p + 2 >= lo + n_run:
+                continue
+            dup = False
+            for m in range(n):
+                if out[m] == p:
+                    dup = True
+            if not dup:
+                out[n] = p
+                n += 1
+    return n
+
+
+@njit(cache=True)
+def _at(t, r, p, step):
+    """Position step places after p in run r, wrapping to the run's start."""
+    lo = t.run_start[r]
+    return lo + (p - lo + step) % t.run_len[r]
+
+
+@njit(cache=True)
+def _triples_change(t, s, r, i, j, sign):
+    """Add (sign 1) or take back (sign -1) the swap's triple-count changes; codes hold the swapped labels."""
+    codes = s.codes
+    starts = np.empty(6, dtype=np.int64)
+    for rule in range(t.tb_group.shape[0]):
+        g = t.tb_group[rule, r]
+        n = _triple_starts(t, r, i, j, t.tb_cyclic[rule], starts)
+        for m in range(n):
+            p, q, u = starts[m], _at(t, r, starts[m], 1), _at(t, r, starts[m], 2)
+            s.tb_count[rule, g, _old(codes, i, j, p), _old(codes, i, j, q), _old(codes, i, j, u)] -= sign
+            s.tb_count[rule, g, codes[p], codes[q], codes[u]] += sign
+
+
+@njit(cache=True)
+def _triples_ok(t, s, r, i, j):
+    """With the swap's changes added: are the touched triple counts within bounds?"""
+    codes = s.codes
+    starts = np.empty(6, dtype=np.int64)
+    for rule in range(t.tb_group.shape[0]):
+        g = t.tb_group[rule, r]
+        n = _triple_starts(t, r, i, j, t.tb_cyclic[rule], starts)
+        for m in range(n):
+            p, q, u = starts[m], _at(t, r, starts[m], 1), _at(t, r, starts[m], 2)
+            a, b, c = codes[p], codes[q], codes[u]
+            if s.tb_count[rule, g, a, b, c] > t.tb_high[rule, g, a, b, c]:
+                return False
+            a, b, c = _old(codes, i, j, p), _old(codes, i, j, q), _old(codes, i, j, u)
+            if s.tb_count[rule, g, a, b, c] < t.tb_low[rule, g, a, b, c]:
+                return False
+    return True
+
+
+@njit(cache=True)
 def _spans_change(t, s, i, j, sign):
     """Span counts after the swap (sign 1) or back (sign -1); codes hold the swapped labels."""
     codes = s.codes
@@ -248,6 +315,10 @@ def swap_valid(t, s, i, j):
         _pairs_change(t, s, r, i, j, 1)
         ok = _pairs_ok(t, s, r, i, j)
         _pairs_change(t, s, r, i, j, -1)
+    if ok and t.tb_group.shape[0] > 0:
+        _triples_change(t, s, r, i, j, 1)
+        ok = _triples_ok(t, s, r, i, j)
+        _triples_change(t, s, r, i, j, -1)
     if ok and t.sp_member.shape[0] > 0:
         _spans_change(t, s, i, j, 1)
         ok = _spans_ok(t, s, i, j)
@@ -279,6 +350,8 @@ def apply_swap(t, s, i, j):
     codes[j] = ci
     if t.pb_group.shape[0] > 0:
         _pairs_change(t, s, r, i, j, 1)
+    if t.tb_group.shape[0] > 0:
+        _triples_change(t, s, r, i, j, 1)
     if t.sp_member.shape[0] > 0:
         _spans_change(t, s, i, j, 1)
     if t.earlier.shape[0] > 0:

@@ -8,11 +8,13 @@ Every rule kind states itself here as a few *local primitives* (`Rule.add_moves`
 - gaps between members of two sets of conditions (min-gap),
 - what may stand on both sides of a break between runs (run-boundary),
 - bounds on ordered pair counts per group of runs (balanced-transitions),
+- bounds on ordered triple counts per group of runs (balanced-triples),
 - bounds on a set's count in stretches of positions (even-spread),
 - distances to earlier participants' runs (participants-differ; and no repeat of a whole design).
 
 A swap of trials i and j (same run) changes only the neighbourhoods of i and j, at most eight pair
-counts, the spans that hold exactly one of i and j, and two entries per earlier run. Given a design
+counts and twelve triple counts, the spans that hold exactly one of i and j, and two entries per
+earlier run. Given a design
 that passes every rule, `MoveChecker.valid` decides whether the swapped design does by looking only
 there: O(window) work, no Python loops, no copies (the swap is made in place, judged and undone).
 The tests hold it against the rules' own `check` on every rule kind (tests/test_moves.py); the full
@@ -26,6 +28,7 @@ from collections import namedtuple
 import numpy as np
 
 from seqsolve.rules.base import StudyFacts
+from seqsolve.rules.triples import triple_counts
 
 #: an upper bound that never binds
 NO_LIMIT = 1 << 40
@@ -51,6 +54,10 @@ Tables = namedtuple(
         "pb_cyclic",  # bool (P,): count the wrap from a run's last trial to its first
         "pb_low",  # int64 (P, G, K, K)
         "pb_high",  # int64 (P, G, K, K)
+        "tb_group",  # int64 (P3, R): triple-count groups, the group of each run
+        "tb_cyclic",  # bool (P3,): count the two triples that wrap from a run's end to its start
+        "tb_low",  # int64 (P3, G3, K, K, K)
+        "tb_high",  # int64 (P3, G3, K, K, K)
         "sp_ptr",  # int64 (T, N + 1): spans, CSR offsets of the spans holding each position
         "sp_idx",  # int64 (nnz,): span ids
         "sp_member",  # bool (T, K): the set whose count each span limits
@@ -67,6 +74,7 @@ State = namedtuple(
     [
         "codes",  # int64 (N,)
         "pb_count",  # int64 (P, G, K, K)
+        "tb_count",  # int64 (P3, G3, K, K, K)
         "sp_count",  # int64 (n_spans,)
         "dist",  # int64 (E, R, R): positions at which earlier run q and this run r differ
     ],
@@ -88,6 +96,7 @@ class MoveRules:
         self.gaps: list[tuple[np.ndarray, np.ndarray, int, bool]] = []
         self.boundaries: list[tuple[np.ndarray, int]] = []
         self.pair_bounds: list[tuple[list[list[int]], np.ndarray, np.ndarray, bool]] = []
+        self.triple_bounds: list[tuple[list[list[int]], np.ndarray, np.ndarray, bool]] = []
         self.spans: list[tuple[np.ndarray, list[tuple[int, int, int, int]]]] = []  # (member, [(start, stop, lo, hi)])
         self.min_diff = 0
 
@@ -123,6 +132,10 @@ class MoveRules:
         """Summed pair counts over each group of runs within [low[g], high[g]] (arrays (G, K, K))."""
         self.pair_bounds.append((groups, np.asarray(low), np.asarray(high), bool(cyclic)))
 
+    def bound_triples(self, groups: list[list[int]], low: np.ndarray, high: np.ndarray, cyclic: bool) -> None:
+        """Summed triple counts over each group of runs within [low[g], high[g]] (arrays (G, K, K, K))."""
+        self.triple_bounds.append((groups, np.asarray(low), np.asarray(high), bool(cyclic)))
+
     def bound_spans(self, codes, run: int, spans: list[tuple[int, int, int, int]]) -> None:
         """The count of codes in positions start..stop-1 of the run lies in [lo, hi], per span."""
         off = int(self.starts[run])
@@ -149,6 +162,7 @@ class MoveRules:
                 pb_group[p, runs] = g
                 pb_low[p, g] = low[g]
                 pb_high[p, g] = np.minimum(high[g], NO_LIMIT)
+        tb_group, tb_low, tb_high = _group_bounds(self.triple_bounds, r_n, (k, k, k))
         ptr, idx, sp_lo, sp_hi, sp_member = _span_index(self.spans, n, k)
         return Tables(
             run_of=run_of,
@@ -168,6 +182,10 @@ class MoveRules:
             pb_cyclic=np.array([c for *_, c in self.pair_bounds], dtype=bool),
             pb_low=pb_low,
             pb_high=pb_high,
+            tb_group=tb_group,
+            tb_cyclic=np.array([c for *_, c in self.triple_bounds], dtype=bool),
+            tb_low=tb_low,
+            tb_high=tb_high,
             sp_ptr=ptr,
             sp_idx=idx,
             sp_member=sp_member,
@@ -176,6 +194,21 @@ class MoveRules:
             earlier=np.array([np.concatenate(e) for e in earlier], dtype=np.int64).reshape(len(earlier), n),
             min_diff=np.array([self.min_diff], dtype=np.int64),
         )
+
+
+def _group_bounds(bounds, n_runs: int, shape: tuple[int, ...]):
+    """Per rule: the group of each run (P, R), and low and high bounds (P, G, *shape) padded to the
+    largest number of groups G (padding never binds)."""
+    n_groups = max([len(g) for g, *_ in bounds], default=1)
+    group = np.zeros((len(bounds), n_runs), dtype=np.int64)
+    low = np.zeros((len(bounds), n_groups, *shape), dtype=np.int64)
+    high = np.full((len(bounds), n_groups, *shape), NO_LIMIT, dtype=np.int64)
+    for p, (groups, lo, hi, _) in enumerate(bounds):
+        for g, runs in enumerate(groups):
+            group[p, runs] = g
+            low[p, g] = lo[g]
+            high[p, g] = np.minimum(hi[g], NO_LIMIT)
+    return group, low, high
 
 
 def _span_index(spans, n: int, k: int):
@@ -220,6 +253,10 @@ def start_state(tables: Tables, codes: np.ndarray) -> State:
                 np.add.at(pb[p, g], (seq[:-1], seq[1:]), 1)
                 if tables.pb_cyclic[p]:
                     pb[p, g, seq[-1], seq[0]] += 1
+    tb = np.zeros(tables.tb_low.shape, dtype=np.int64)
+    for p in range(tb.shape[0]):
+        for r, (a, n) in enumerate(zip(tables.run_start, tables.run_len)):
+            tb[p, tables.tb_group[p, r]] += triple_counts(codes[a : a + n], k, bool(tables.tb_cyclic[p]))
     sp = np.zeros(len(tables.sp_lo), dtype=np.int64)
     for t in range(tables.sp_member.shape[0]):
         inside = np.flatnonzero(tables.sp_member[t][codes])
@@ -233,7 +270,7 @@ def start_state(tables: Tables, codes: np.ndarray) -> State:
                 if tables.run_len[q] == tables.run_len[r]:
                     a, b, n = tables.run_start[q], tables.run_start[r], tables.run_len[r]
                     dist[e, q, r] = np.count_nonzero(tables.earlier[e, a : a + n] != codes[b : b + n])
-    return State(codes, pb, sp, dist)
+    return State(codes, pb, tb, sp, dist)
 
 
 class MoveChecker:

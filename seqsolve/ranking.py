@@ -7,8 +7,7 @@ from collections.abc import Callable
 import numpy as np
 
 from seqsolve.audit import Rank
-from seqsolve.efficiency.setup import make_setup
-from seqsolve.objective import References, Scorer, Weights
+from seqsolve.objective import References, Scorer, Weights, scoring_setup
 from seqsolve.seeds import derive_seed, reference_seed
 from seqsolve.solve import sample_orderings
 from seqsolve.spec import Study
@@ -45,7 +44,7 @@ def rank_designs(
     Each design and the sample are scored on the design's own timing: the files' gaps where the timing
     is jittered and the files give onsets, else the gaps the participant's seed draws.
     """
-    setup = make_setup(study) if study.spec.timing.tr is not None else None  # none: counterbalance alone
+    setup = scoring_setup(study)  # None without timing.tr: the score is then counterbalance alone
     master = study.spec.study.seed
     refs = References.for_study(study, setup, reference_seed(master))
     weights = Weights.from_study(study)

@@ -254,6 +254,19 @@ class _PositionsPath:
         self._full: tuple[OrderingModel, list] | None = None
         stateable = [r for r, ok in zip(study.rules, counts_expressible(study)) if ok and not r.across_participants]
         self.sketch = _CountsPath(study, options, stateable)
+        self.wide = any(r.wide_model for r in study.rules)
+
+    def _params(self, seed: int) -> cp_model.CpSolver:
+        solver = solver_params(seed, self.options)
+        if self.wide:
+            # measured (benchmarks/bench_triples.py): on balanced-triples models probing, symmetry detection
+            # and the LP relaxation cost seconds and pruned little; 4 conditions x 192 trials, 4 runs: 21 s
+            # to a first ordering with CP-SAT's defaults, 4.7 s without probing and symmetry, 3.2 s without
+            # the LP as well
+            solver.parameters.cp_model_probing_level = 0
+            solver.parameters.symmetry_level = 0
+            solver.parameters.linearization_level = 0
+        return solver
 
     def build(self, fixed: list[np.ndarray] | None, earlier: list[list[np.ndarray]]) -> tuple[OrderingModel, list]:
         """The model (whole, or with fixed positions as constants) and its guard literals."""
@@ -287,14 +300,14 @@ class _PositionsPath:
             fixed = [seq.copy() for seq in current]
             fixed[r][:] = -1
             m, guards = self.build(fixed, earlier)
-            status, solver = _solve_hinted(m, guards, current, solver_params(seed + r + 1, self.options))
+            status, solver = _solve_hinted(m, guards, current, self._params(seed + r + 1))
             if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
                 break  # this run cannot be mended alone: search the whole design below
             current = m.decode(solver)
         if not self._violated_runs(current, earlier, differ):
             return current
         m, guards = self.full(earlier)
-        status, solver = _solve_hinted(m, guards, current, solver_params(seed, self.options))
+        status, solver = _solve_hinted(m, guards, current, self._params(seed))
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
             _raise_for(status, self.study, self.options, "positions", earlier)
         return m.decode(solver)

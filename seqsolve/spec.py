@@ -25,6 +25,9 @@ from seqsolve.errors import Problem, SpecError, shorten
 from seqsolve.io import limits
 from seqsolve.rules import RULE_KINDS, AnyRule, Rule, StudyFacts
 
+if typing.TYPE_CHECKING:  # pragma: no cover
+    from seqsolve.items import ItemCatalogue
+
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_]*$"
 LABEL_PATTERN = r"^[A-Za-z0-9]+$"  # BIDS labels are alphanumeric
 # names that pandas' read_csv (and R, spreadsheets) turn into missing values
@@ -114,6 +117,11 @@ class Condition(Strict):
         Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
         Annotated[str, Field(pattern=NAME_PATTERN, max_length=NAME_CHARS)],
     ] = Field(default_factory=dict, description="Factor levels, e.g. {valence = 'positive', size = 'large'}.")
+    items: list[Annotated[str, Field(min_length=1, max_length=TEXT_CHARS)]] | None = Field(
+        default=None,
+        max_length=100_000,
+        description="Stimulus items shown in this condition's trials (names; attributes come from [items] file).",
+    )
 
     @field_validator("name")
     @classmethod
@@ -332,6 +340,36 @@ class Objective(Strict):
         return self
 
 
+class AttributeRun(Strict):
+    """[[items.rules]] kind = "attribute-run": items sharing a value of an attribute, not too many in a row."""
+
+    kind: Literal["attribute-run"]
+    attribute: str = Field(min_length=1, max_length=NAME_CHARS, description="A column of the items file.")
+    length: int = Field(
+        ge=1, le=1000, description="Most trials in a row whose items share a value (1: never two in a row)."
+    )
+    label: str | None = Field(default=None, max_length=TEXT_CHARS, description="Optional name shown in reports.")
+
+
+class ItemsSection(Strict):
+    """[items]: stimulus items given to trials after the ordering is made (seqsolve/items.py)."""
+
+    file: str | None = Field(
+        default=None,
+        max_length=1000,
+        description="CSV or TSV file of items, relative to the spec: column 'item', optional 'condition', "
+        "any other columns are attributes ('stim_file' also goes to events.tsv).",
+    )
+    repeat: bool = Field(default=False, description="May an item be shown more than once to a participant.")
+    rotate: list[Annotated[str, Field(max_length=NAME_CHARS)]] = Field(
+        default_factory=list,
+        max_length=1000,
+        description="Conditions whose items form one pool, split into as many lists, rotated across "
+        "participants (Latin square): each item appears in each of these conditions equally often.",
+    )
+    rules: list[AttributeRun] = Field(default_factory=list, max_length=100)
+
+
 class RuleSet(Strict):
     """A file of ready-made rules in rules/."""
 
@@ -354,6 +392,7 @@ class Spec(Strict):
     counterbalance: list[Counterbalance] = Field(
         default_factory=list, max_length=20, description="Factors balanced over participants (run orders, mappings)."
     )
+    items: ItemsSection | None = None
 
 
 @dataclass(frozen=True)
@@ -367,6 +406,7 @@ class Study:
     facts: StudyFacts
     participants: tuple[str, ...]
     spec_hash: str
+    items: ItemCatalogue | None = None  # stimulus items ([items], conditions' items), seqsolve/items.py
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -410,12 +450,15 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
     if seed is not None:
         spec = spec.model_copy(update={"study": spec.study.model_copy(update={"seed": seed})})
     facts = _facts(spec, source)
-    # a field left at a default it had before it existed stays out, so earlier specs keep their hash
-    unset = {"objective": {"hrf_robust"}} if spec.objective.hrf_robust == "canonical" else {}
+    from seqsolve.items import load_items  # it reads the spec's models
+
+    catalogue = load_items(spec, Path(source), facts)
     canonical = json.dumps(
         {
-            "spec": spec.model_dump(mode="json", exclude={"rules": True, "include": True, **unset}),
+            "spec": _hashed(spec),
             "rules": [r.model_dump(mode="json") for r in rules],
+            # the items file's content, so the hash names the items as well as the spec
+            **({"items": catalogue.digest()} if catalogue is not None else {}),
         },
         sort_keys=True,
     )
@@ -427,7 +470,22 @@ def study_from_mapping(data: dict, *, source: str = "<spec>", seed: int | None =
         facts=facts,
         participants=participant_labels(spec.study.participants),
         spec_hash="sha256:" + hashlib.sha256(canonical.encode()).hexdigest(),
+        items=catalogue,
     )
+
+
+def _hashed(spec: Spec) -> dict:
+    """The spec as hashed: fields left at a default they had before they existed (items not given,
+    objective.hrf_robust "canonical") stay out, so earlier specs keep their hash."""
+    out = spec.model_dump(mode="json", exclude={"rules", "include"})
+    if out["objective"].get("hrf_robust") == "canonical":
+        out["objective"].pop("hrf_robust")
+    if out.get("items") is None:
+        out.pop("items", None)
+    for c in out["conditions"]:
+        if c.get("items") is None:
+            c.pop("items", None)
+    return out
 
 
 def participant_labels(participants: int | list[str]) -> tuple[str, ...]:
@@ -601,7 +659,8 @@ def _check_rule_values(rules: list[Rule], sources: list[str]) -> list[Problem]:
 
 
 #: column names a counterbalanced factor may not take: the output tables' own, and the events columns
-#: BIDS gives a meaning of its own (sample, response_time, value, HED, stim_file; BIDS 1.x, from memory)
+#: BIDS gives a meaning of its own (sample, response_time, value, HED, stim_file; BIDS 1.x, from memory),
+#: and item, the stimulus items' column
 TAKEN_COLUMNS = {
     "participant",
     "participant_id",
@@ -617,6 +676,7 @@ TAKEN_COLUMNS = {
     "value",
     "hed",
     "stim_file",
+    "item",
 }
 
 

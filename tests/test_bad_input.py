@@ -80,6 +80,11 @@ SPECS = [
         id="balanced-transitions-range",
     ),
     pytest.param(
+        rule('kind = "balanced-triples"\ntolerance = -2'),
+        ["rules[1].tolerance", "greater than or equal to 0"],
+        id="balanced-triples-range",
+    ),
+    pytest.param(
         rule('kind = "forbidden-transition"\nfirst = "gain"'),
         ["rules[1].then", "missing required key"],
         id="forbidden-transition-missing",

@@ -11,8 +11,9 @@ from typer.testing import CliRunner
 
 from seqsolve.cli import app
 from seqsolve.counting import counting_conflict
+from seqsolve.errors import InfeasibleError
 from seqsolve.model import OrderingModel
-from seqsolve.rules import BalancedTransitions, ForbiddenTransition, MaxRun, MinGap
+from seqsolve.rules import BalancedTransitions, BalancedTriples, ForbiddenTransition, MaxRun, MinGap
 from seqsolve.solve import SolveOptions, generate_orderings
 from seqsolve.spec import load_study
 from tests.conftest import counts_model_feasible, make_study
@@ -304,3 +305,49 @@ def test_counting_claims_only_what_the_solver_proves(counts, runs, rules):
     solver.parameters.num_workers = 1
     solver.parameters.max_time_in_seconds = 20
     assert solver.solve(m.cp) == cp_model.INFEASIBLE
+
+
+# balanced triples against pairs that may never stand side by side
+
+
+def test_triple_balance_needing_a_repeat_that_max_run_forbids_is_named_by_counting(tmp_path):
+    # 12 of each among 36 trials: 34 triples, 'gain' 'gain' 'loss' ideally 34 / 27 = 1.26 times, so at
+    # least 1 with tolerance 0; max-run 1 never lets two trials of 'gain' stand side by side
+    text = (
+        VALENCE.format(n=12)
+        .replace('kind = "balanced-transitions"\ntolerance = 1', 'kind = "balanced-triples"\ntolerance = 0')
+        .replace("length = 4", "length = 1")
+    )
+    result = check(tmp_path, text)
+    assert result.exit_code == 1, result.output
+    assert "run 1 needs 'gain' then 'gain' then 'gain' at least floor(1.26) - 0 = 1 time(s)" in result.output
+    assert "but rules[1] never lets those trials stand side by side" in result.output
+    assert "rules[3]" not in result.output, "the forbidden transition has nothing to do with it"
+
+
+# 12 of each: 34 triples, ideal 34 / 27 = 1.26 -> at least 1 of 'b' 'a' 'x' with tolerance 0; 9 of each: 25
+# triples, ideal 0.93 -> at least 0; cyclic: the two wrapping triples could give up to 2, so nothing is claimed
+TRIPLE_CASES = [
+    (12, 0, False, False, True),
+    (12, 0, False, True, True),  # 'b' 'a' 'c' has no direct repeat: still bounded below
+    (12, 1, False, False, False),
+    (9, 0, False, False, False),
+    (12, 0, True, False, False),
+]
+
+
+@pytest.mark.parametrize("n, tolerance, cyclic, exclude, expected", TRIPLE_CASES)
+def test_triple_counting_claims_only_what_the_solver_proves(n, tolerance, cyclic, exclude, expected):
+    rules = [
+        ForbiddenTransition(kind="forbidden-transition", first="b", then="a"),
+        BalancedTriples(kind="balanced-triples", tolerance=tolerance, cyclic=cyclic, exclude_repeats=exclude),
+    ]
+    study = make_study([n, n, n], rules)
+    claimed = counting_conflict(study) is not None
+    assert claimed == expected
+    try:
+        generate_orderings(study, SolveOptions(method="positions", time_limit=60))
+        feasible = True
+    except InfeasibleError:
+        feasible = False
+    assert not (claimed and feasible), "counting claimed a conflict the solver met"

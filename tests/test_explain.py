@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from seqsolve.errors import InfeasibleError
-from seqsolve.rules import BalancedTransitions, MaxRun, MinGap, Position, RunBoundary
+from seqsolve.rules import BalancedTransitions, BalancedTriples, MaxRun, MinGap, Position, RunBoundary
 from seqsolve.solve import SolveOptions, choose_method, explain, generate_orderings
 from tests.conftest import make_study
 
@@ -26,6 +26,17 @@ BALANCED0 = BalancedTransitions(kind="balanced-transitions", tolerance=0)
         ([3, 3, 3], [BALANCED0, BOUNDARY, MAX1], [0, 2]),
         # 4 targets with 3 trials between them need 13 positions; the run has 10
         ([4, 6], [MinGap(kind="min-gap", conditions=["a"], gap=3), BOUNDARY], [0]),
+        # every triple once a cyclic run (an order-3 de Bruijn sequence) holds a, a, a and b, b, b; with
+        # at most 2 in a row only the wrap can hold one of them
+        (
+            [4, 4],
+            [
+                BOUNDARY,
+                BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True),
+                MaxRun(kind="max-run", length=2),
+            ],
+            [1, 2],
+        ),
     ],
 )
 @pytest.mark.parametrize("method", ["counts", "positions"])

@@ -83,3 +83,57 @@ def test_any_text_as_an_ordering_file_reads_or_raises_our_error(tmp_path_factory
         read_designs(study, [path])
     except SeqsolveError:
         pass
+
+
+ITEMS_SPEC = """
+[study]
+name = "items"
+task = "items"
+participants = 2
+runs = 2
+[[conditions]]
+name = "gain"
+trials = 2
+[[conditions]]
+name = "loss"
+trials = 2
+[[conditions]]
+name = "rest"
+trials = 2
+baseline = true
+[timing]
+tr = 2.0
+soa = 2.0
+[objective]
+iterations = 0
+[items]
+file = "{file}"
+rotate = ["gain", "loss"]
+[[items.rules]]
+kind = "attribute-run"
+attribute = "kind"
+length = 1
+"""
+ITEMS = "item,condition,kind\n" + "".join(f"i{n},{('gain', 'loss', '')[n % 3]},{'ab'[n % 2]}\n" for n in range(8))
+
+
+@FUZZ
+@given(st.integers(0, 2**32 - 1), st.booleans())
+def test_a_mutated_items_file_loads_or_raises_our_error(tmp_path_factory, seed, tabs):
+    from seqsolve.item_assign import assign_items, check_items
+    from seqsolve.solve import generate_orderings
+
+    folder = tmp_path_factory.mktemp("items")
+    name = "items.tsv" if tabs else "items.csv"
+    table = ITEMS.replace(",", "\t") if tabs else ITEMS
+    (folder / name).write_bytes(
+        mutate_table(table, random.Random(seed), ["gain", "loss", "rest", "i1"], "\t" if tabs else ",")
+    )
+    (folder / "s.toml").write_text(ITEMS_SPEC.format(file=name))
+    try:
+        study = load_study(folder / "s.toml")
+        for k, p in enumerate(generate_orderings(study)):
+            items = assign_items(study.items, k, p.label, p.runs, p.seed)
+            assert check_items(study.items, k, p.runs, items) == []
+    except SeqsolveError:
+        pass

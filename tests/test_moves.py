@@ -91,6 +91,14 @@ KIND_CASES = {
     "balanced-transitions across runs": [
         {"kind": "balanced-transitions", "tolerance": 0, "exclude_repeats": True, "across_runs": True}
     ],
+    "balanced-triples": [{"kind": "balanced-triples", "tolerance": 1}],
+    "balanced-triples cyclic across runs": [
+        {"kind": "balanced-triples", "tolerance": 1, "cyclic": True, "exclude_repeats": True, "across_runs": True}
+    ],
+    "balanced-triples with pairs": [
+        {"kind": "balanced-triples", "tolerance": 1, "cyclic": True},
+        {"kind": "balanced-transitions", "tolerance": 1},
+    ],
     "forbidden-transition": [{"kind": "forbidden-transition", "first": "f=x", "then": "c"}],
     "min-gap": [{"kind": "min-gap", "conditions": ["a"], "gap": 2}],
     "min-gap other": [{"kind": "min-gap", "conditions": ["a"], "gap": 2, "other": "b"}],

@@ -17,10 +17,12 @@ from seqsolve.search import SearchOptions
 from seqsolve.spec import load_study
 
 ROOT = Path(__file__).resolve().parents[1]
-#: fixed soa with a baseline and one factor; jittered gaps with two factors and text labels (p01)
+#: fixed soa with a baseline and one factor; jittered gaps with two factors and text labels (p01);
+#: stimulus items with attributes and a stim_file column
 EXAMPLES = {
     "reward_cue": ROOT / "examples" / "reward_cue.toml",
     "word_reading": ROOT / "examples" / "word_reading.toml",
+    "melody_endings": ROOT / "examples" / "melody_endings.toml",
 }
 
 
@@ -145,12 +147,16 @@ def test_a_stimulus_loop_plays_each_run_as_the_spec_declares(made):
     manifest = json.loads((out / "manifest.json").read_text())
     t = study.spec.timing
     factors = sorted({f for c in study.spec.conditions for f in c.levels})
+    # with items: the item and its attributes follow the factor columns
+    items = ["item", *study.items.attributes] if study.items is not None else []
     for part in manifest["participants"]:
         for run in part["runs"]:
             path = out / "stimulus" / f"sub-{part['label']}_run-{run['run']}_trials.csv"
             rows = _play(path)
             assert list(rows[0])[:2] == ["position", "condition"]
-            assert sorted(list(rows[0])[2:-4]) == factors  # one column per factor, before the times
+            head = list(rows[0])
+            assert sorted(head[2 : len(head) - 4 - len(items)]) == factors  # one column per factor, then items
+            assert head[len(head) - 4 - len(items) : -4] == items  # before the times
             assert [int(r["position"]) for r in rows] == list(range(1, len(rows) + 1))
             onsets = [float(r["onset"]) for r in rows]
             assert all(b > a for a, b in zip(onsets, onsets[1:]))

@@ -11,7 +11,7 @@ from ortools.sat.python import cp_model
 from scipy.signal import max_len_seq
 
 from seqsolve.model import OrderingModel
-from seqsolve.rules import BalancedTransitions, MaxRun
+from seqsolve.rules import BalancedTransitions, BalancedTriples, MaxRun
 from tests.conftest import make_facts
 
 
@@ -136,3 +136,89 @@ def test_scipy_m_sequence_is_balanced_as_published(nbits):
     s = max_len_seq(nbits)[0].astype(np.int64)
     facts = make_facts(np.bincount(s, minlength=2).tolist())
     assert BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True).check(facts, [s]) == []
+
+
+def eulerian_circuits(edges: list[tuple[int, ...]]) -> int:
+    """Eulerian circuits of the order-2 graph whose edges are the given triples (a, b, c): an edge
+    runs from node (a, b) to node (b, c). BEST theorem (van Aardenne-Ehrenfest & de Bruijn 1951;
+    Smith & Tutte 1941): ec(G) = t_w(G) * prod_v (outdeg(v) - 1)!, t_w the arborescences towards
+    any node w, counted by Kirchhoff's matrix-tree theorem as a minor of the Laplacian D_out - A.
+    Each triple used once, so each circuit is one cyclic sequence holding every triple once."""
+    nodes = sorted({e[:2] for e in edges} | {e[1:] for e in edges})
+    at = {v: i for i, v in enumerate(nodes)}
+    adj = np.zeros((len(nodes), len(nodes)))
+    for a, b, c in edges:
+        adj[at[(a, b)], at[(b, c)]] += 1
+    out_deg = adj.sum(axis=1)
+    arborescences = round(np.linalg.det((np.diag(out_deg) - adj)[1:, 1:]))
+    return arborescences * math.prod(math.factorial(int(d) - 1) for d in out_deg)
+
+
+@pytest.mark.parametrize("k", [2, 3, 4])
+def test_best_theorem_helper_matches_the_closed_form_of_order_3(k):
+    # B(k, 3) = (k!)^(k^2) / k^3 de Bruijn sequences of order 3 (the BEST theorem's closed form)
+    edges = list(itertools.product(range(k), repeat=3))
+    assert eulerian_circuits(edges) == math.factorial(k) ** (k * k) // k**3
+
+
+def test_order_3_de_bruijn_count_matches_best_theorem():
+    """k = 2: every ordered triple exactly once, cyclically: (2!)^(2^2) / 2^3 = 2 cyclic sequences
+    (00010111 and 00011101), each standing for 8 linear orderings (its rotations). k = 3 has
+    (3!)^9 / 27 = 373,248, too many to enumerate here (about 3 minutes of CP-SAT); the next test
+    takes the same theorem to three conditions."""
+    facts = make_facts([4, 4])
+    rule = BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True)
+    found = enumerate_orderings(facts, [rule], keep=True).found
+    assert len(found) == 2 * 8
+    canonical = {min(s[i:] + s[:i] for i in range(len(s))) for s in found}
+    assert canonical == {(0, 0, 0, 1, 0, 1, 1, 1), (0, 0, 0, 1, 1, 1, 0, 1)}
+
+
+def test_no_repeat_triples_count_matches_best_theorem():
+    """Every triple with no direct repeat (a != b != c) exactly once, cyclically: with exclude_repeats
+    and tolerance 0 the k(k-1)^2 such triples each get ideal 1 and fill the run, so repeats get none.
+    Their number is the Eulerian circuits of the graph on pairs of different conditions (BEST theorem,
+    computed above): 12 for k = 3, each standing for 12 rotations (k = 4 has 143,327,232: too many)."""
+    k = 3
+    edges = [e for e in itertools.product(range(k), repeat=3) if e[0] != e[1] and e[1] != e[2]]
+    expected = eulerian_circuits(edges)
+    assert expected == 12
+    facts = make_facts([(k - 1) ** 2] * k)
+    rule = BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True, exclude_repeats=True)
+    found = enumerate_orderings(facts, [rule], keep=True).found
+    n = len(edges)
+    assert len(found) == expected * n
+    canonical = {min(s[i:] + s[:i] for i in range(len(s))) for s in found}
+    assert len(canonical) == expected
+
+
+@pytest.mark.parametrize("k", [2, 3, 4])
+def test_hand_built_order_3_de_bruijn_sequence_passes_zero_tolerance_triples(k):
+    s = np.array(de_bruijn(k, 3))
+    facts = make_facts(np.bincount(s, minlength=k).tolist())
+    rule = BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True)
+    assert rule.check(facts, [s]) == []
+    # an order-2 de Bruijn sequence repeated k times has every pair k times but not every triple once
+    broken = np.tile(np.array(de_bruijn(k, 2)), k)
+    assert rule.check(facts, [broken]) != []
+
+
+@pytest.mark.parametrize(
+    "counts, tolerance",
+    [([3, 3], 0), ([4, 2], 0), ([4, 4], 0), ([4, 4], 1), ([5, 3], 1), ([3, 2, 2], 0), ([2, 2, 2, 1], 0)],
+)
+def test_linear_triple_balance_count_matches_brute_force(counts, tolerance):
+    """Linear runs (N - 2 triples): CP-SAT's count of orderings meeting the balance equals a plain
+    enumeration of every arrangement judged by counting triples with itertools."""
+    facts = make_facts(counts)
+    rule = BalancedTriples(kind="balanced-triples", tolerance=tolerance)
+    ((_, low, high),) = rule.bounds(facts)
+    trials = [c for c, n in enumerate(counts) for _ in range(n)]
+    brute = 0
+    for w in set(itertools.permutations(trials)):
+        found = np.zeros_like(low)
+        for t in zip(w, w[1:], w[2:]):
+            found[t] += 1
+        brute += bool(((found >= low) & (found <= high)).all())
+    assert enumerate_orderings(facts, [rule]).n == brute
+    assert 0 < brute < len(set(itertools.permutations(trials)))

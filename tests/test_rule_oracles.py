@@ -11,6 +11,7 @@ import pytest
 
 from seqsolve.rules import (
     BalancedTransitions,
+    BalancedTriples,
     EvenSpread,
     ForbiddenTransition,
     MaxRun,
@@ -77,6 +78,17 @@ ORACLE = [
         True,
     ),  # 6 pairs, ideal 2/3
     (BalancedTransitions(kind="balanced-transitions", tolerance=0, cyclic=True), ["ababcc"], False),
+    # balanced triples: 6 trials of 2 a, 2 b, 2 c hold 4 triples, ideal 4/27 each -> 0 or 1 with tolerance 0
+    (BalancedTriples(kind="balanced-triples", tolerance=0), ["abacbc"], True),
+    (BalancedTriples(kind="balanced-triples", tolerance=0), ["abcabc"], False),  # a, b, c twice
+    (BalancedTriples(kind="balanced-triples", tolerance=1), ["abcabc"], True),
+    (BalancedTriples(kind="balanced-triples", tolerance=0, exclude_repeats=True), ["aabbcc"], True),
+    # 3 a, 2 b, 1 c: the wrap adds 'b, a, b' a second time (cyclic ideal 6 x 3 x 2 x 2 / 216 = 1/3)
+    (BalancedTriples(kind="balanced-triples", tolerance=0), ["abacab"], True),
+    (BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True), ["abacab"], False),
+    # 4 a, 1 b, 1 c: linear ideal 4 x 64 / 216 = 1.19 for 'a, a, a' is missed (0), the wrap gives it
+    (BalancedTriples(kind="balanced-triples", tolerance=0), ["aabaca"], False),
+    (BalancedTriples(kind="balanced-triples", tolerance=0, cyclic=True), ["aabaca"], True),
 ]
 
 BOUNDARY_ORACLE = [
@@ -91,6 +103,14 @@ BOUNDARY_ORACLE = [
         True,
     ),
     (BalancedTransitions(kind="balanced-transitions", tolerance=0, across_runs=True), ["abcabc", "cbacba"], False),
+    # triples summed over two runs: 'a, a, b' twice is too often unless repeats are left free
+    (BalancedTriples(kind="balanced-triples", tolerance=0, across_runs=True), ["aabbcc", "aabbcc"], False),
+    (
+        BalancedTriples(kind="balanced-triples", tolerance=0, across_runs=True, exclude_repeats=True),
+        ["aabbcc", "aabbcc"],
+        True,
+    ),
+    (BalancedTriples(kind="balanced-triples", tolerance=0, across_runs=True), ["aabbcc", "bbaacc"], True),
 ]
 
 

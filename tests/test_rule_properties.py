@@ -10,6 +10,7 @@ from seqsolve.errors import InfeasibleError
 from seqsolve.rules import (
     RULE_CLASSES,
     BalancedTransitions,
+    BalancedTriples,
     EvenSpread,
     ForbiddenTransition,
     MaxRun,
@@ -39,6 +40,14 @@ def rules_for(draw, k: int):
     if kind == "BalancedTransitions":
         return BalancedTransitions(
             kind="balanced-transitions",
+            tolerance=draw(st.integers(0, 2)),
+            exclude_repeats=draw(st.booleans()),
+            across_runs=draw(st.booleans()),
+            cyclic=draw(st.booleans()),
+        )
+    if kind == "BalancedTriples":
+        return BalancedTriples(
+            kind="balanced-triples",
             tolerance=draw(st.integers(0, 2)),
             exclude_repeats=draw(st.booleans()),
             across_runs=draw(st.booleans()),
@@ -75,6 +84,7 @@ STRATEGY_KINDS = frozenset(
         "MaxRun",
         "MinRun",
         "BalancedTransitions",
+        "BalancedTriples",
         "ForbiddenTransition",
         "MinGap",
         "RunBoundary",

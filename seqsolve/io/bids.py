@@ -96,6 +96,10 @@ def events_sidecar_json(study: Study) -> str:
                 "Description": (c.description + "; " if c.description else "") + "the run's level, counterbalanced",
                 "Levels": {lev: f"level '{lev}' of '{c.name}'" for lev in c.levels},
             }
+    if study.items is not None:
+        sidecar["item"] = {"Description": "the stimulus item the trial shows, from the spec's [items] (n/a: none)"}
+        if "stim_file" in study.items.attributes:
+            sidecar["stim_file"] = {"Description": "the item's stimulus file, as the items file gives it (n/a: none)"}
     return json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n"
 
 

@@ -45,4 +45,6 @@ VOLUMES_PER_RUN = Limit("SEQSOLVE_MAX_VOLUMES_PER_RUN", 20_000, "volumes per run
 FINE_SAMPLES_PER_RUN = Limit("SEQSOLVE_MAX_FINE_SAMPLES_PER_RUN", 2_000_000, "fine-grid samples per run")
 FIR_BINS = Limit("SEQSOLVE_MAX_FIR_BINS", 500, "FIR bins")
 SMALLEST_STEP = Limit("SEQSOLVE_MIN_STEP_MS", 1, "ms for the smallest time step (resolution, grid, FIR bin)")
+# stimulus items of a study (seqsolve/items.py): word lists and picture sets run to thousands
+ITEMS = Limit("SEQSOLVE_MAX_ITEMS", 100_000, "stimulus items")
 PARTICIPANTS = Limit("SEQSOLVE_MAX_PARTICIPANTS", 10_000, "participants")

@@ -14,6 +14,7 @@ import numpy as np
 
 from seqsolve.errors import OrderingFileError, Problem, shorten
 from seqsolve.io import limits
+from seqsolve.items import ITEM_COLUMN, STIM_FILE
 from seqsolve.spec import Study
 from seqsolve.timing import RunSchedule
 
@@ -30,44 +31,75 @@ def events_filename(study: Study, label: str, run: int) -> str:
     return f"sub-{label}/sub-{label}_task-{study.spec.study.task}_run-{run}_events.tsv"
 
 
-def events_tsv(study: Study, sched: RunSchedule, extra: dict[str, str] | None = None) -> str:
-    """BIDS events table of one run: onset, duration, trial_type; the baseline's trials omitted.
-    extra: {column: value} that holds for the whole run (a counterbalanced run level), on every row."""
+def events_tsv(
+    study: Study, sched: RunSchedule, extra: dict[str, str] | None = None, items: np.ndarray | None = None
+) -> str:
+    """BIDS events table of one run: onset, duration, trial_type, then the extra columns, then the item
+    columns; the baseline's trials omitted.
+
+    extra: {column: value} that holds for the whole run (a counterbalanced run level), on every row.
+    items: each trial's item index (-1: none), adding the column item and, when the items file has
+    one, BIDS' optional stim_file ('n/a' where a trial shows no item).
+    """
     extra = extra or {}
-    tail = "".join(f"\t{v}" for v in extra.values())
-    lines = ["\t".join([*EVENTS_COLUMNS, *extra])]
-    for c, on, du in zip(sched.codes, sched.onsets, sched.durations):
+    shown = item_columns(study, items)
+    lines = ["\t".join([*EVENTS_COLUMNS, *extra, *shown])]
+    for t, (c, on, du) in enumerate(zip(sched.codes, sched.onsets, sched.durations)):
         if c != study.facts.baseline:
-            lines.append(f"{_num(on)}\t{_num(du)}\t{study.names[c]}{tail}")
+            cells = [(values[items[t]] or "n/a") if items[t] >= 0 else "n/a" for values in shown.values()]
+            lines.append("\t".join([_num(on), _num(du), study.names[c], *extra.values(), *cells]))
     return "\n".join(lines) + "\n"
 
 
+def item_columns(study: Study, items: np.ndarray | None) -> dict[str, tuple[str, ...]]:
+    """{column: value per item} of the items written to events.tsv: item, and stim_file if given."""
+    cat = study.items
+    if cat is None or items is None:
+        return {}
+    out = {ITEM_COLUMN: cat.names}
+    if STIM_FILE in cat.attributes:
+        out[STIM_FILE] = cat.attributes[STIM_FILE]
+    return out
+
+
 def orderings_csv(
-    study: Study, designs: dict[str, list[RunSchedule]], extra: dict[str, list[dict[str, str]]] | None = None
+    study: Study,
+    designs: dict[str, list[RunSchedule]],
+    extra: dict[str, list[dict[str, str]]] | None = None,
+    items: dict[str, list[np.ndarray]] | None = None,
 ) -> str:
     """Every trial of every participant, baseline included, in one table.
 
     The column participant_id ('sub-01') keeps the label text for readers that turn '01' in
-    the participant column into the number 1 (pandas, R, spreadsheets); it follows the columns
-    earlier versions wrote, so they stay where they were. extra: per participant and run, {column:
-    value} holding for the whole run (counterbalanced factors), written after participant_id.
+    the participant column into the number 1 (pandas, R, spreadsheets). Columns: participant, run,
+    position, condition, onset, duration, participant_id, then the extra columns, then item; the later
+    ones follow the columns earlier versions wrote, so those stay where they were.
+
+    extra: per participant and run, {column: value} holding for the whole run (counterbalanced factors).
+    items: per participant and run, each trial's item index (-1: none); adds the column item (the
+    trial's stimulus item, empty where none), last.
     """
     extra = extra or {}
     names = list(next(iter(extra.values()))[0]) if extra else []
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow((*ORDERING_COLUMNS, "participant_id", *names))
+    w.writerow((*ORDERING_COLUMNS, "participant_id", *names, *([ITEM_COLUMN] if items else [])))
     for label, scheds in designs.items():
         for r, s in enumerate(scheds, start=1):
             tail = list(extra[label][r - 1].values()) if extra else []
+            shown = items[label][r - 1] if items else None
             for p, (c, on, du) in enumerate(zip(s.codes, s.onsets, s.durations), start=1):
-                w.writerow([label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}", *tail])
+                row = [label, r, p, study.names[c], _num(on), _num(du), f"sub-{label}", *tail]
+                if shown is not None:
+                    row.append(study.items.names[shown[p - 1]] if shown[p - 1] >= 0 else "")
+                w.writerow(row)
     return buf.getvalue()
 
 
 # ----------------------------------------------------------------------------------------------
 # reading: every value checked at the edge (size, encoding, field length, finite numbers, bounds)
 
+NO_COLUMN = -2  # a trial's item when its file has no item column (-1: the trial shows no item)
 MAX_PROBLEMS = 20  # a file stops being read after this many problems: the first ones show what is wrong
 MAX_NAME_CHARS = 200  # condition names and participant labels are short; longer fields are not names
 
@@ -85,21 +117,31 @@ def read_orderings(study: Study, paths: list[str | Path]) -> dict[str, list[np.n
 
 def read_designs(
     study: Study, paths: list[str | Path], partial: bool = False
-) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
+) -> dict[str, list[tuple[np.ndarray, np.ndarray | None] | None]]:
     """Like read_orderings, with each run's onsets in seconds where the files give every one (else None).
 
     partial: a participant may have only some of the spec's runs; each absent run is None in the list
     (which still has one entry per declared run)."""
+    return {
+        label: [None if run is None else run[:2] for run in runs]
+        for label, runs in read_trials(study, paths, partial).items()
+    }
+
+
+def read_trials(study: Study, paths: list[str | Path], partial: bool = False) -> dict[str, list[tuple | None]]:
+    """Like read_designs, each run with a third entry: its trials' item indices (-1: no item), or None
+    when the files give no item column (or the study has no items). partial as in read_designs: an
+    absent run is None."""
     paths = [Path(p) for p in paths]
     trials = _Trials()
     for f, path in enumerate(paths):
         _check_file(path)
         if path.name.endswith("_events.tsv") or path.suffix == ".tsv":
-            label, run, codes, times = _read_events(study, path)
+            label, run, codes, times, items = _read_events(study, path)
             if trials.has_run(label, run):
                 raise OrderingFileError(str(path), [Problem("", f"participant {label} run {run} was already read")])
-            for pos, (code, onset) in enumerate(zip(codes, times), start=1):
-                trials.add(label, run, pos, code, onset, f, 0)
+            for pos, (code, onset, item) in enumerate(zip(codes, times, items), start=1):
+                trials.add(label, run, pos, code, onset, f, 0, item)
         else:
             _read_csv(study, path, f, trials)
     return trials.designs(study, paths, partial)
@@ -111,10 +153,21 @@ class _Trials:
 
     def __init__(self):
         self.labels: dict[str, int] = {}
-        self.ints = {k: array("q") for k in ("label", "run", "pos", "code", "file", "line")}
+        self.ints = {k: array("q") for k in ("label", "run", "pos", "code", "file", "line", "item")}
         self.onset = array("d")  # NaN: no onset given
 
-    def add(self, label: str, run: int, pos: int, code: int, onset: float | None, file: int, line: int) -> None:
+    def add(
+        self,
+        label: str,
+        run: int,
+        pos: int,
+        code: int,
+        onset: float | None,
+        file: int,
+        line: int,
+        item: int = NO_COLUMN,
+    ) -> None:
+        """item: the trial's item index, -1 for none, NO_COLUMN when the file has no item column."""
         index = self.labels.setdefault(label, len(self.labels))
         for key, value in (
             ("label", index),
@@ -123,6 +176,7 @@ class _Trials:
             ("code", code),
             ("file", file),
             ("line", line),
+            ("item", item),
         ):
             self.ints[key].append(value)
         self.onset.append(math.nan if onset is None else onset)
@@ -133,11 +187,9 @@ class _Trials:
         col = {k: np.frombuffer(self.ints[k], dtype=np.int64) for k in ("label", "run")}
         return bool(np.any((col["label"] == self.labels[label]) & (col["run"] == run)))
 
-    def designs(
-        self, study: Study, paths: list[Path], partial: bool = False
-    ) -> dict[str, list[tuple[np.ndarray, np.ndarray | None]]]:
-        """Runs per participant in position order; a repeated or missing position or run raises (a missing
-        run is None instead when partial)."""
+    def designs(self, study: Study, paths: list[Path], partial: bool = False) -> dict[str, list[tuple | None]]:
+        """Runs per participant in position order, each (codes, onsets or None, items or None); a repeated
+        or missing position or run raises (a missing run is None instead when partial)."""
         col = {k: np.frombuffer(v, dtype=np.int64) if len(v) else np.zeros(0, np.int64) for k, v in self.ints.items()}
         onset = np.frombuffer(self.onset, dtype=float) if len(self.onset) else np.zeros(0)
         order = np.lexsort((col["file"], col["line"], col["pos"], col["run"], col["label"]))
@@ -165,9 +217,11 @@ class _Trials:
                     ],
                 )
             times = onset[a:b]
+            items = col["item"][a:b].copy()
             blocks.setdefault(col["label"][a], {})[run] = (
                 col["code"][a:b].copy(),
                 None if np.isnan(times).any() else _checked_onsets(study, where, label, run, times.copy()),
+                None if (items == NO_COLUMN).any() else items,
             )
         out = {}
         for index, runs in blocks.items():
@@ -415,10 +469,27 @@ def _read_csv(study: Study, path: Path, file: int, trials: _Trials) -> None:
         given = (_field(row, cols, "onset") or "").strip()
         # onsets are optional; without them the spec's timing is used
         onset = _seconds(given, "onset", where, problems) if given else None
-        if code is not None and (onset is not None or not given):
-            trials.add(label, run, pos, code, onset, file, line)
+        item = _item(study, cols, row, where, problems)
+        if code is not None and (onset is not None or not given) and item is not None:
+            trials.add(label, run, pos, code, onset, file, line, item)
     if problems:
         raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
+
+
+def _item(study: Study, cols: dict[str, int], row: list[str], where: str, problems: list[Problem]) -> int | None:
+    """The trial's item index: -1 for an empty cell or 'n/a' (no item), NO_COLUMN without an item column
+    (or a study without items); None, with a problem, for a name that is not one of the study's items."""
+    if ITEM_COLUMN not in cols or study.items is None:
+        return NO_COLUMN
+    name = _name(_field(row, cols, ITEM_COLUMN))
+    if name in ("", "n/a"):
+        return -1
+    index = study.items.index(name)
+    if index is None:
+        close = difflib.get_close_matches(name, study.items.names, n=1) if len(name) <= MAX_NAME_CHARS else []
+        hint = f" (did you mean '{close[0]}'?)" if close else ""
+        problems.append(Problem(where, f"unknown item {shorten(name)}{hint}; items come from the spec's [items]"))
+    return index
 
 
 def _label(row: list[str], cols: dict[str, int]) -> str:
@@ -441,7 +512,7 @@ def _bad_run_position(row: list[str], cols: dict[str, int], n_runs: int, max_pos
 _BIDS = re.compile(r"sub-(?P<sub>[A-Za-z0-9]+)_.*?(?:run-(?P<run>\d{1,6})_)?events\.tsv$")
 
 
-def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[float]]:
+def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[float], list[int]]:
     m = _BIDS.search(path.name)
     if not m:
         raise OrderingFileError(
@@ -471,24 +542,29 @@ def _read_events(study: Study, path: Path) -> tuple[str, int, list[int], list[fl
         onset = _seconds(_field(row, cols, "onset"), "onset", f"line {line}", problems)
         code = _code(study, _name(_field(row, cols, "trial_type")), f"line {line}", problems)
         found += code is not None
-        if code is not None and onset is not None:
-            rows.append((onset, code))
+        item = _item(study, cols, row, f"line {line}", problems)
+        if code is not None and onset is not None and item is not None:
+            rows.append((onset, code, item))
     if not rows and not problems:
         problems.append(Problem("", "no trials after the header line; an events file has one row per trial"))
     if problems:
         raise OrderingFileError(str(path), _wrong_spec_hint(study, problems, found))
     rows.sort()
-    codes = [c for _, c in rows]
+    codes = [c for _, c, _ in rows]
+    items = [i for _, _, i in rows]
     base = study.facts.baseline
     if base is None or base in codes or study.facts.counts[run - 1, base] == 0:
-        return label, run, codes, [t for t, _ in rows]
-    codes = _restore_baseline(study, path, rows, run)
+        return label, run, codes, [t for t, _, _ in rows], items
+    codes, items = _restore_baseline(study, path, rows, run)
     t = study.spec.timing
-    return label, run, codes, [t.lead_in + k * t.soa for k in range(len(codes))]
+    return label, run, codes, [t.lead_in + k * t.soa for k in range(len(codes))], items
 
 
-def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], run: int) -> list[int]:
-    """Put the omitted baseline trials back into the empty slots of a fixed-SOA run."""
+def _restore_baseline(
+    study: Study, path: Path, rows: list[tuple[float, int, int]], run: int
+) -> tuple[list[int], list[int]]:
+    """Put the omitted baseline trials back into the empty slots of a fixed-SOA run: (codes, items),
+    a restored trial showing no item."""
     t = study.spec.timing
     if t.soa is None:
         raise OrderingFileError(
@@ -502,7 +578,7 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], r
         )
     slots = {}
     max_slots = int(limits.TRIALS_PER_RUN.value())
-    for onset, code in rows:
+    for onset, code, item in rows:
         k = (onset - t.lead_in) / t.soa
         if abs(k - round(k)) > 1e-3 or k < -1e-9:
             raise OrderingFileError(
@@ -525,6 +601,9 @@ def _restore_baseline(study: Study, path: Path, rows: list[tuple[float, int]], r
             )
         if int(round(k)) in slots:
             raise OrderingFileError(str(path), [Problem("", f"two trials have onset {onset:g} s")])
-        slots[int(round(k))] = code
+        slots[int(round(k))] = (code, item)
     n = max(study.facts.run_length(run - 1), max(slots) + 1)
-    return [slots.get(k, study.facts.baseline) for k in range(n)]
+    # a file without an item column leaves its restored trials without one too
+    none = NO_COLUMN if rows[0][2] == NO_COLUMN else -1
+    filled = [slots.get(k, (study.facts.baseline, none)) for k in range(n)]
+    return [c for c, _ in filled], [i for _, i in filled]

@@ -20,11 +20,13 @@ from seqsolve.rules.positions import Position
 from seqsolve.rules.run_boundary import RunBoundary
 from seqsolve.rules.spread import EvenSpread
 from seqsolve.rules.transitions import BalancedTransitions, ForbiddenTransition
+from seqsolve.rules.triples import BalancedTriples
 
 RULE_CLASSES: tuple[type[Rule], ...] = (
     MaxRun,
     MinRun,
     BalancedTransitions,
+    BalancedTriples,
     ForbiddenTransition,
     MinGap,
     RunBoundary,

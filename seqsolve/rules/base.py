@@ -107,6 +107,9 @@ class Rule(BaseModel):
     example: ClassVar[str] = ""
     #: True for rules about several participants (checked on the whole study)
     across_participants: ClassVar[bool] = False
+    #: True for rules whose encoding adds many literals per position (the driver then skips CP-SAT's
+    #: probing and symmetry detection, which cost seconds there and found nothing, seqsolve/solve.py)
+    wide_model: ClassVar[bool] = False
 
     label: str | None = Field(default=None, description="Optional name shown in reports.")
 

@@ -1,7 +1,8 @@
 """Scale-out: what a local Dask cluster costs per participant, beside `--workers 2` (issue 12, item 4).
 
 benchmarks/specs/study200.toml (200 participants x 2 runs x 34 trials, 10 search rounds each, a
-participants-differ rule), designed by design_study in this process three ways, one after the
+participants-differ rule, the run order of two timbres counterbalanced, item lists rotated across
+participants), designed by design_study in this process three ways, one after the
 other in the same run: 2 worker processes (generate --workers 2), a LocalCluster of 2 worker
 processes (generate --cluster local --cluster-workers 2), and (not with --quick) 1 process for the
 scale. For each: wall-clock seconds split into
@@ -36,6 +37,7 @@ from seqsolve.search import SearchOptions, warm_up  # noqa: E402
 from seqsolve.spec import load_study  # noqa: E402
 
 STUDY200 = ROOT / "benchmarks" / "specs" / "study200.toml"
+ITEMS = STUDY200.with_name("glide_items.tsv")
 
 
 def timed_design(study, search: SearchOptions, cluster: ClusterOptions | None) -> tuple[dict, dict]:
@@ -61,6 +63,7 @@ def subset(n: int | None):
     with tempfile.TemporaryDirectory() as tmp:
         small = Path(tmp) / STUDY200.name
         small.write_text(text)
+        (Path(tmp) / ITEMS.name).write_bytes(ITEMS.read_bytes())  # the spec names its items file relatively
         return load_study(small)
 
 

@@ -38,6 +38,31 @@ def ideal_pair_counts(counts: np.ndarray, cyclic: bool, exclude_repeats: bool) -
     return n_trans * prod / denom if denom > 0 else prod
 
 
+#: the high bound of a count left free
+FREE = 10**9
+
+
+def count_bounds(
+    facts: StudyFacts, across_runs: bool, tolerance: int, ideal_of, free: np.ndarray | None
+) -> list[tuple[list[int], np.ndarray, np.ndarray]]:
+    """(runs, low, high) groups for a balance of pair or triple counts: each count summed over `runs`
+    (every run alone, or all runs together) lies within `tolerance` of its ideal, rounded outward.
+
+    ideal_of(counts): the ideal count array of one run with these condition counts; free: a mask of
+    counts left unbounded (low 0, high FREE), or None."""
+    groups = [list(range(facts.n_runs))] if across_runs else [[r] for r in range(facts.n_runs)]
+    out = []
+    for runs in groups:
+        ideal = sum(ideal_of(facts.counts[r]) for r in runs)
+        low = np.maximum(np.floor(ideal + 1e-9) - tolerance, 0).astype(np.int64)
+        high = (np.ceil(ideal - 1e-9) + tolerance).astype(np.int64)
+        if free is not None:
+            low[free] = 0
+            high[free] = FREE
+        out.append((runs, low, high))
+    return out
+
+
 class BalancedTransitions(Rule):
     """First-order carry-over balance: each ordered pair occurs about as often as its ideal count."""
 
@@ -60,17 +85,14 @@ class BalancedTransitions(Rule):
 
     def bounds(self, facts: StudyFacts) -> list[tuple[list[int], np.ndarray, np.ndarray]]:
         """(runs, low, high) groups: the summed pair counts over `runs` must lie in [low, high]."""
-        groups = [list(range(facts.n_runs))] if self.across_runs else [[r] for r in range(facts.n_runs)]
-        out = []
-        for runs in groups:
-            ideal = sum(ideal_pair_counts(facts.counts[r], self.cyclic, self.exclude_repeats) for r in runs)
-            low = np.maximum(np.floor(ideal + 1e-9) - self.tolerance, 0).astype(np.int64)
-            high = (np.ceil(ideal - 1e-9) + self.tolerance).astype(np.int64)
-            if self.exclude_repeats:
-                np.fill_diagonal(low, 0)
-                np.fill_diagonal(high, 10**9)
-            out.append((runs, low, high))
-        return out
+        free = np.eye(facts.n_conditions, dtype=bool) if self.exclude_repeats else None
+        return count_bounds(
+            facts,
+            self.across_runs,
+            self.tolerance,
+            lambda counts: ideal_pair_counts(counts, self.cyclic, self.exclude_repeats),
+            free,
+        )
 
     def _add_bounds(self, cp, count_of, facts, guard, active=None) -> None:
         k = facts.n_conditions
@@ -83,7 +105,7 @@ class BalancedTransitions(Rule):
                     # the pair a->b occurs between its low and high count
                     if low[a, b] > 0:
                         cp.add(expr >= int(low[a, b])).only_enforce_if(guard)
-                    if high[a, b] < 10**9:
+                    if high[a, b] < FREE:
                         cp.add(expr <= int(high[a, b])).only_enforce_if(guard)
 
     def encode(self, m, guard) -> None:

@@ -8,9 +8,7 @@ import numpy as np
 from pydantic import Field
 
 from seqsolve.rules.base import Rule, StudyFacts, Violation
-
-#: an upper bound that never binds (triples left free)
-FREE = 10**9
+from seqsolve.rules.transitions import FREE, count_bounds
 
 
 def triple_counts(seq: np.ndarray, n_conditions: int, cyclic: bool = False) -> np.ndarray:
@@ -84,18 +82,14 @@ class BalancedTriples(Rule):
 
     def bounds(self, facts: StudyFacts) -> list[tuple[list[int], np.ndarray, np.ndarray]]:
         """(runs, low, high) groups: the summed triple counts over `runs` lie in [low, high], (K, K, K)."""
-        groups = [list(range(facts.n_runs))] if self.across_runs else [[r] for r in range(facts.n_runs)]
-        out = []
-        for runs in groups:
-            ideal = sum(ideal_triple_counts(facts.counts[r], self.cyclic, self.exclude_repeats) for r in runs)
-            low = np.maximum(np.floor(ideal + 1e-9) - self.tolerance, 0).astype(np.int64)
-            high = (np.ceil(ideal - 1e-9) + self.tolerance).astype(np.int64)
-            if self.exclude_repeats:
-                free = repeat_mask(facts.n_conditions)
-                low[free] = 0
-                high[free] = FREE
-            out.append((runs, low, high))
-        return out
+        free = repeat_mask(facts.n_conditions) if self.exclude_repeats else None
+        return count_bounds(
+            facts,
+            self.across_runs,
+            self.tolerance,
+            lambda counts: ideal_triple_counts(counts, self.cyclic, self.exclude_repeats),
+            free,
+        )
 
     def encode(self, m, guard) -> None:
         k = m.facts.n_conditions

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import signal
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -111,3 +112,16 @@ def end_session(proc) -> None:
     proc.wait()
     proc.stdout.close()
     proc.stderr.close()
+
+
+def session_processes(sid: int) -> list[int]:
+    """Processes of a session still alive (Linux /proc; field 6 of stat is the session id)."""
+    out = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[3]) == sid and fields[0] != "Z":
+            out.append(int(stat.parent.name))
+    return out

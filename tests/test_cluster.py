@@ -16,7 +16,7 @@ import pytest
 from typer.testing import CliRunner
 
 from seqsolve.cli import app
-from tests.conftest import end_session
+from tests.conftest import end_session, session_processes
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -126,19 +126,6 @@ def test_running_scheduler_by_address_gives_the_same_files(tiny, tmp_path):
     assert folder_bytes(tmp_path / "out") == one
 
 
-def _session_processes(sid: int) -> list[int]:
-    """Processes of a session still alive (Linux /proc; field 6 of stat is the session id)."""
-    out = []
-    for stat in Path("/proc").glob("[0-9]*/stat"):
-        try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-        except OSError:
-            continue
-        if int(fields[3]) == sid and fields[0] != "Z":
-            out.append(int(stat.parent.name))
-    return out
-
-
 @pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="reads /proc to find leftover processes")
 @pytest.mark.parametrize("signum, group, code", [(signal.SIGINT, True, 130), (signal.SIGTERM, False, 143)])
 def test_ctrl_c_on_a_cluster_writes_the_best_designs_so_far(tmp_path, signum, group, code):
@@ -163,9 +150,9 @@ def test_ctrl_c_on_a_cluster_writes_the_best_designs_so_far(tmp_path, signum, gr
             proc.send_signal(signum)
         stdout, _ = proc.communicate(timeout=300)
         deadline = time.monotonic() + 20
-        while _session_processes(proc.pid) and time.monotonic() < deadline:
+        while session_processes(proc.pid) and time.monotonic() < deadline:
             time.sleep(0.2)
-        left = _session_processes(proc.pid)
+        left = session_processes(proc.pid)
     finally:
         end_session(proc)
     assert proc.returncode == code, stdout

@@ -19,7 +19,7 @@ import seqsolve.generate  # noqa: F401 - loads the module patched below
 import seqsolve.io.atomic as atomic
 import seqsolve.solve  # noqa: F401 - loads the module patched below
 from seqsolve.cli import app
-from tests.conftest import end_session
+from tests.conftest import end_session, session_processes
 from tests.test_bad_input import BASE
 
 runner = CliRunner()
@@ -187,19 +187,6 @@ def test_a_run_killed_mid_swap_gets_its_previous_output_back(tmp_path):
 # signals: SIGTERM like Ctrl-C, the best designs written, exit 143, no process left
 
 
-def _session_processes(sid: int) -> list[int]:
-    """Processes of a session still alive (Linux /proc; field 6 of stat is the session id)."""
-    out = []
-    for stat in Path("/proc").glob("[0-9]*/stat"):
-        try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-        except OSError:
-            continue
-        if int(fields[3]) == sid and fields[0] != "Z":
-            out.append(int(stat.parent.name))
-    return out
-
-
 @pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="reads /proc to find leftover processes")
 def test_sigterm_with_workers_writes_the_best_designs_and_exits_143(tmp_path):
     spec = spec_file(
@@ -224,9 +211,9 @@ def test_sigterm_with_workers_writes_the_best_designs_and_exits_143(tmp_path):
         proc.send_signal(signal.SIGTERM)
         stdout, _ = proc.communicate(timeout=300)
         deadline = time.monotonic() + 20
-        while _session_processes(proc.pid) and time.monotonic() < deadline:
+        while session_processes(proc.pid) and time.monotonic() < deadline:
             time.sleep(0.2)
-        left = _session_processes(proc.pid)
+        left = session_processes(proc.pid)
     finally:
         end_session(proc)
     assert proc.returncode == 143, stdout

@@ -412,6 +412,40 @@ def _robustness_section(m: dict) -> str:
 # the page
 
 
+def _study_section(m: dict) -> str:
+    """Counterbalancing across participants and stimulus items, from the manifest (nothing if neither)."""
+    out = []
+    sections = m.get("counterbalance") or []
+    if sections:
+        out.append("<h3>Counterbalancing</h3><ul>")
+        out += [f"<li>{html.escape(c.get('sentence', c.get('name', '')))}</li>" for c in sections]
+        out.append("</ul>")
+        for c in sections:
+            head = ["participant", c["name"]]
+            rows = [
+                [label, " - ".join(v) if isinstance(v, list) else str(v)]
+                for label, v in (c.get("participants") or {}).items()
+            ]
+            if rows:
+                out.append(f"<details><summary>{html.escape(c['name'])} by participant</summary>")
+                out.append(_html_table(head, rows) + "</details>")
+        crossing = m.get("counterbalance_crossing")
+        if crossing:
+            out.append(f"<p class=caption>{html.escape(str(crossing))}</p>")
+    items = m.get("items")
+    if items:
+        lists = ", ".join(items.get("rotate") or []) or "none"
+        out.append(
+            f"<h3>Stimulus items</h3><p>{items.get('items')} item(s) from {html.escape(str(items.get('file') or 'the spec'))}"
+            f"; lists rotated across participants for: {html.escape(lists)}; repeats "
+            f"{'allowed' if items.get('repeat') else 'not allowed'}.</p><ul>"
+        )
+        out += [f"<li>{html.escape(r)}</li>" for r in items.get("rules", [])]
+        out.append("</ul>")
+        out += [f"<p class=note>note: {html.escape(n)}</p>" for n in items.get("notes", [])]
+    return "<h2>The study around the orderings</h2>" + "".join(out) if out else ""
+
+
 def report_html(files: Mapping[str, str | bytes]) -> str:
     """The report of an output folder given as {file name: text} (READS; manifest.json required).
 
@@ -435,6 +469,7 @@ def report_html(files: Mapping[str, str | bytes]) -> str:
     parts = [
         head,
         _rules_section(m),
+        _study_section(m),
         _participants_section(m),
         _plane_section(m, files),
         _design_matrix_section(m, orderings),

@@ -192,3 +192,22 @@ def test_compare_families_and_labels_are_escaped(folder):
     page = report_html(dict(files, **{"manifest.json": json.dumps(manifest), "compare.json": json.dumps(comparison)}))
     assert "&lt;b&gt;odd&lt;/b&gt;" in page and "<b>odd</b>" not in page
     assert "compare&#x27;s families" in page
+
+
+def test_counterbalancing_and_items_shown_and_a_spec_without_tr_renders(tmp_path):
+    # the tone example has no timing.tr and two counterbalanced factors; the melody one has items
+    tone, melody = tmp_path / "tone", tmp_path / "melody"
+    generate(load_study(ROOT / "examples" / "tone_oddball.toml"), tone, search=SearchOptions(iterations=1))
+    generate(load_study(ROOT / "examples" / "melody_endings.toml"), melody, search=SearchOptions(iterations=1))
+    page = (tone / REPORT_NAME).read_text(encoding="utf-8")
+    manifest = json.loads((tone / "manifest.json").read_text())
+    assert "The study around the orderings" in page and "no timing.tr" in page
+    for section in manifest["counterbalance"]:
+        order = section["participants"]["01"]
+        shown = " - ".join(order) if isinstance(order, list) else order
+        assert f"<td>01</td><td>{shown}</td>" in page, section["name"]
+    page = (melody / REPORT_NAME).read_text(encoding="utf-8")
+    items = json.loads((melody / "manifest.json").read_text())["items"]
+    assert f"{items['items']} item(s) from melody_items.tsv" in page
+    assert all(rule.replace("'", "&#x27;") in page for rule in items["rules"])
+    assert images_loaded(page, tmp_path) == "1" * page.count("<img ")

@@ -22,14 +22,15 @@ ROOT = Path(__file__).resolve().parents[1]
 
 # the optimum of this tiny study is reached from most seeds (all 11,550 orderings are enumerated in
 # test_search.py), so participants searched on their own collide and the pass in participant order
-# has to search some again: the cluster must leave that pass to the main process
+# has to search some again: the cluster must leave that pass to the main process. The stall (60
+# rounds) outlasts the search's kicks (after 20 rounds without gain), which carry it to the optimum.
 TINY = (
     '[study]\nname = "t"\ntask = "t"\nparticipants = 3\nruns = 1\nseed = 0\n'
     '[[conditions]]\nname = "a"\ntrials = 4\n[[conditions]]\nname = "b"\ntrials = 4\n'
     '[[conditions]]\nname = "rest"\ntrials = 3\nbaseline = true\n'
     '[timing]\ntr = 2.0\nsoa = 2.0\n[[rules]]\nkind = "max-run"\nlength = 2\n'
     '[[rules]]\nkind = "participants-differ"\n'
-    "[analysis]\nfir_window = 6.0\nhigh_pass_cutoff = 0.0\n[objective]\niterations = 40\nstall = 20\n"
+    "[analysis]\nfir_window = 6.0\nhigh_pass_cutoff = 0.0\n[objective]\niterations = 100\nstall = 60\n"
 )
 
 # long searches, for stopping one midway

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import signal
+import time
 from pathlib import Path
 
 import numpy as np
@@ -125,3 +126,11 @@ def session_processes(sid: int) -> list[int]:
         if int(fields[3]) == sid and fields[0] != "Z":
             out.append(int(stat.parent.name))
     return out
+
+
+def processes_left(sid: int, wait: float = 20.0) -> list[int]:
+    """Processes of session sid still alive after waiting up to `wait` seconds for them to end."""
+    deadline = time.monotonic() + wait
+    while session_processes(sid) and time.monotonic() < deadline:
+        time.sleep(0.2)
+    return session_processes(sid)

@@ -9,14 +9,13 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
 from typer.testing import CliRunner
 
 from seqsolve.cli import app
-from tests.conftest import end_session, session_processes
+from tests.conftest import end_session, processes_left
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -150,10 +149,7 @@ def test_ctrl_c_on_a_cluster_writes_the_best_designs_so_far(tmp_path, signum, gr
         else:
             proc.send_signal(signum)
         stdout, _ = proc.communicate(timeout=300)
-        deadline = time.monotonic() + 20
-        while session_processes(proc.pid) and time.monotonic() < deadline:
-            time.sleep(0.2)
-        left = session_processes(proc.pid)
+        left = processes_left(proc.pid)
     finally:
         end_session(proc)
     assert proc.returncode == code, stdout

@@ -9,7 +9,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest
@@ -19,7 +18,7 @@ import seqsolve.generate  # noqa: F401 - loads the module patched below
 import seqsolve.io.atomic as atomic
 import seqsolve.solve  # noqa: F401 - loads the module patched below
 from seqsolve.cli import app
-from tests.conftest import end_session, session_processes
+from tests.conftest import end_session, processes_left
 from tests.test_bad_input import BASE
 
 runner = CliRunner()
@@ -210,10 +209,7 @@ def test_sigterm_with_workers_writes_the_best_designs_and_exits_143(tmp_path):
                 break
         proc.send_signal(signal.SIGTERM)
         stdout, _ = proc.communicate(timeout=300)
-        deadline = time.monotonic() + 20
-        while session_processes(proc.pid) and time.monotonic() < deadline:
-            time.sleep(0.2)
-        left = session_processes(proc.pid)
+        left = processes_left(proc.pid)
     finally:
         end_session(proc)
     assert proc.returncode == 143, stdout

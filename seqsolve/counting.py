@@ -209,12 +209,10 @@ def pair_conflict(study: Study):
 
 def _pair_explanation(study: Study, i: int, j: int, runs: list[int], pair, low: int, allowed: int):
     """Explanation naming the balance rule i (with its arithmetic) and the forbidding rule j."""
-    from seqsolve.solve import Explanation
-
     facts, rule = study.facts, study.rules[i]
     a, b = pair
     ideal = float(sum(ideal_pair_counts(facts.counts[r], rule.cyclic, rule.exclude_repeats)[a, b] for r in runs))
-    where = f"run {runs[0] + 1} needs" if len(runs) == 1 else f"runs {runs[0] + 1} to {runs[-1] + 1} together need"
+    where = _runs_need(runs)
     wrap = f"; the wraps from last trial to first can give it at most {allowed}" if allowed else ""
     first, then = facts.names[a], facts.names[b]
     arithmetic = (
@@ -222,13 +220,7 @@ def _pair_explanation(study: Study, i: int, j: int, runs: list[int], pair, low: 
         f"ideal {ideal:.2f}, tolerance {rule.tolerance}; but {study.rule_sources[j]} never lets '{first}' be "
         f"directly followed by '{then}'{wrap})"
     )
-    rows = [
-        (i, study.rule_sources[i], rule.sentence(facts) + arithmetic),
-        (j, study.rule_sources[j], study.rules[j].sentence(facts)),
-    ]
-    # each rule alone was not tried (balance alone can fail by itself), so no claim of a smallest set
-    note = "found by counting, before any solving; whether each holds alone was not tried"
-    return Explanation(True, False, sorted(rows), note)
+    return _counted(study, i, j, arithmetic)
 
 
 def triple_conflict(study: Study):
@@ -253,11 +245,9 @@ def triple_conflict(study: Study):
 
 def _triple_explanation(study: Study, i: int, j: int, runs: list[int], triple, low: int, allowed: int):
     """Explanation naming the triple balance rule i (with its arithmetic) and the forbidding rule j."""
-    from seqsolve.solve import Explanation
-
     facts, rule = study.facts, study.rules[i]
     ideal = float(sum(ideal_triple_counts(facts.counts[r], rule.cyclic, rule.exclude_repeats)[triple] for r in runs))
-    where = f"run {runs[0] + 1} needs" if len(runs) == 1 else f"runs {runs[0] + 1} to {runs[-1] + 1} together need"
+    where = _runs_need(runs)
     wrap = f"; the triples that wrap from last trials to first can give it at most {allowed}" if allowed else ""
     a, b, c = (facts.names[x] for x in triple)
     arithmetic = (
@@ -265,9 +255,21 @@ def _triple_explanation(study: Study, i: int, j: int, runs: list[int], triple, l
         f"ideal {ideal:.2f}, tolerance {rule.tolerance}; but {study.rule_sources[j]} never lets those trials stand "
         f"side by side{wrap})"
     )
+    return _counted(study, i, j, arithmetic)
+
+
+def _runs_need(runs: list[int]) -> str:
+    return f"run {runs[0] + 1} needs" if len(runs) == 1 else f"runs {runs[0] + 1} to {runs[-1] + 1} together need"
+
+
+def _counted(study: Study, i: int, j: int, arithmetic: str):
+    """Explanation naming the balance rule i (its sentence with the arithmetic) and the forbidding rule j."""
+    from seqsolve.solve import Explanation
+
     rows = [
-        (i, study.rule_sources[i], rule.sentence(facts) + arithmetic),
-        (j, study.rule_sources[j], study.rules[j].sentence(facts)),
+        (i, study.rule_sources[i], study.rules[i].sentence(study.facts) + arithmetic),
+        (j, study.rule_sources[j], study.rules[j].sentence(study.facts)),
     ]
+    # each rule alone was not tried (balance alone can fail by itself), so no claim of a smallest set
     note = "found by counting, before any solving; whether each holds alone was not tried"
     return Explanation(True, False, sorted(rows), note)

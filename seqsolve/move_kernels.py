@@ -96,6 +96,16 @@ def _old(codes, i, j, p):
 
 
 @njit(cache=True)
+def _push_unique(out, n, p):
+    """Append p to out[:n] unless it is there already; returns the new length."""
+    for m in range(n):
+        if out[m] == p:
+            return n
+    out[n] = p
+    return n + 1
+
+
+@njit(cache=True)
 def _pair_starts(t, r, i, j, cyclic, out):
     """Positions p whose pair (p, next) the swap of i and j touches; with cyclic counts the last
     trial's next is the first. Returns how many were written to out (at most 5)."""
@@ -106,13 +116,7 @@ def _pair_starts(t, r, i, j, cyclic, out):
     for p in (i - 1, i, j - 1, j, hi - 1 if wrap else -1):
         if p < lo or p >= hi:
             continue
-        dup = False
-        for m in range(n):
-            if out[m] == p:
-                dup = True
-        if not dup:
-            out[n] = p
-            n += 1
+        n = _push_unique(out, n, p)
     return n
 
 
@@ -180,13 +184,7 @@ def _triple_starts(t, r, i, j, cyclic, out):
                 p = lo + (p - lo) % n_run
             elif p < lo or p + 2 >= lo + n_run:
                 continue
-            dup = False
-            for m in range(n):
-                if out[m] == p:
-                    dup = True
-            if not dup:
-                out[n] = p
-                n += 1
+            n = _push_unique(out, n, p)
     return n
 
 

@@ -313,7 +313,7 @@ def _read_file(path: Path, facts: StudyFacts) -> tuple[list, list[str], str]:
             if len(rows) >= limits.ITEMS.value():
                 problems.append(Problem(f"line {line}", f"too many items; {limits.ITEMS.hint()}"))
                 break
-            rows.append(_row(row, cols, header, facts, f"line {line}", problems))
+            rows.append(_row(row, cols, header, facts, f"{path.name} line {line}", problems))
     except csv.Error as exc:
         raise SpecError(str(path), [Problem(f"line {reader.line_num}", f"cannot be read as a table ({exc})")]) from None
     if not rows and not problems:

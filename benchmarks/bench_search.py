@@ -231,7 +231,7 @@ def report(name: str, budgets: list[float], long: float | None, out: dict) -> No
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="a smoke run: budgets 1 and 3 s, long run 2x (about 3 min)")
+    ap.add_argument("--quick", action="store_true", help="a smoke run: budgets 1 and 3 s, long run 2x (about 4 min)")
     ap.add_argument("--scenarios", default=",".join(SCENARIOS), help=f"comma-separated, of {', '.join(SCENARIOS)}")
     ap.add_argument("--budgets", default=None, help="comma-separated seconds per participant (default 10,30)")
     ap.add_argument(

@@ -63,35 +63,19 @@ def _conditions(counts: dict[str, int], baseline: str) -> list[dict]:
     return [{"name": n, "trials": t, **({"baseline": True} if n == baseline else {})} for n, t in counts.items()]
 
 
-def _tight() -> tuple[list[dict], list[dict]]:
-    """Conditions and rules of the tight scenarios (240 trials a run)."""
-    conds = _conditions({"c0": 45, "c1": 45, "c2": 45, "c3": 45, "rare": 20, "rest": 40}, "rest")
-    rules = [
-        {"kind": "max-run", "length": 1},
-        {"kind": "balanced-transitions", "tolerance": 1, "exclude_repeats": True},
-        {"kind": "min-gap", "conditions": ["rare"], "gap": 4},
-    ]
-    return conds, rules
-
-
 def scenario(name: str):
     """(study, (detection weight, estimation weight)) of one scenario."""
     timing: dict = {"tr": 2.0, "soa": 2.0}
     analysis = {"fir_window": 20.0, "contrasts": "each-vs-baseline"}
-    if name == "tight-study":
-        conds, rules = _tight()
-        return _study(name, conds, timing, rules, analysis, 4), (1.0, 0.25)
-    if name == "standard-study":
-        conds = _conditions({f"c{i}": 48 for i in range(4)} | {"rest": 48}, "rest")
+    # the study-size scenarios: 4 runs, weighted toward detection
+    runs, weights = (4, (1.0, 0.25)) if name.endswith("-study") else (2, (1.0, 1.0))
+    if name in ("tight", "tight-study"):
+        conds = _conditions({"c0": 45, "c1": 45, "c2": 45, "c3": 45, "rare": 20, "rest": 40}, "rest")
         rules = [
-            {"kind": "max-run", "length": 3},
-            {"kind": "balanced-transitions", "tolerance": 1},
-            {"kind": "run-boundary"},
+            {"kind": "max-run", "length": 1},
+            {"kind": "balanced-transitions", "tolerance": 1, "exclude_repeats": True},
+            {"kind": "min-gap", "conditions": ["rare"], "gap": 4},
         ]
-        return _study(name, conds, timing, rules, analysis, 4), (1.0, 0.25)
-    if name == "tight":
-        conds, rules = _tight()
-        runs, weights = 2, (1.0, 1.0)
     elif name == "jitter":
         conds = _conditions({f"c{i}": 32 for i in range(4)} | {"rest": 32}, "rest")
         rules = [{"kind": "max-run", "length": 3}]
@@ -102,20 +86,16 @@ def scenario(name: str):
         conds = _conditions({f"c{i}": 32 for i in range(7)} | {"rest": 56}, "rest")
         rules = [{"kind": "max-run", "length": 4}]
         runs, weights = 1, (0.25, 1.0)
-    elif name == "standard":
-        conds = _conditions({f"c{i}": 40 for i in range(4)} | {"rest": 40}, "rest")
+    elif name in ("standard", "standard-study"):
+        per_run = 40 if name == "standard" else 48
+        conds = _conditions({f"c{i}": per_run for i in range(4)} | {"rest": per_run}, "rest")
         rules = [
             {"kind": "max-run", "length": 3},
             {"kind": "balanced-transitions", "tolerance": 1},
             {"kind": "run-boundary"},
         ]
-        runs, weights = 2, (1.0, 1.0)
     else:
         raise SystemExit(f"unknown scenario '{name}'; scenarios: {', '.join(SCENARIOS)}")
-    return _study(name, conds, timing, rules, analysis, runs), weights
-
-
-def _study(name: str, conds, timing, rules, analysis, runs: int):
     data = {
         "study": {"name": f"bench {name}", "task": "bench", "participants": 1, "runs": runs, "seed": 3},
         "conditions": conds,
@@ -123,7 +103,7 @@ def _study(name: str, conds, timing, rules, analysis, runs: int):
         "rules": rules,
         "analysis": analysis,
     }
-    return study_from_mapping(data, source=f"<scenario {name}>")
+    return study_from_mapping(data, source=f"<scenario {name}>"), weights
 
 
 class CountingScorer(Scorer):

@@ -17,7 +17,6 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
-import click
 import typer
 
 from seqsolve.errors import InternalError, SeqsolveError
@@ -27,6 +26,12 @@ EXIT_CODES = (
     "that cannot be written; 3 a bug in seqsolve; 130 interrupted by Ctrl-C, 143 by SIGTERM (generate still "
     "writes the best designs found so far)."
 )
+
+#: what typer raises to end a command (Exit, Abort) or to report a usage error (the ClickException family:
+#: click's own while typer depended on click, typer's own copy since it stopped); passed through untouched.
+#: Named through typer's public classes, so the command line works with or without click installed.
+_USAGE_ERROR = next(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException")
+_TYPER_ENDINGS = (typer.Exit, typer.Abort, _USAGE_ERROR)
 
 app = typer.Typer(
     name="seqsolve",
@@ -91,7 +96,7 @@ def _guarded(spec: Path | None, display: _StepDisplay | None = None, note: str =
     SIGTERM 143, and anything else, which is a bug, one line and exit 3 (no traceback)."""
     try:
         yield
-    except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
+    except _TYPER_ENDINGS:
         raise
     except SeqsolveError as exc:
         if display is not None:

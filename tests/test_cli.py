@@ -5,6 +5,8 @@ from __future__ import annotations
 import csv
 import json
 import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -163,3 +165,37 @@ def test_every_help_keeps_the_bracketed_section_names():
         assert "spec's :" not in result.output and "spec's ." not in result.output
         seen |= wanted
     assert {"[analysis]", "[objective]"} <= seen
+
+
+#: runs the command line in a fresh interpreter in which `import click` fails, as on a machine where
+#: `pip install -e .` brought a typer that no longer depends on click (typer's own click copy)
+_WITHOUT_CLICK = """
+import sys
+sys.modules["click"] = None
+try:
+    import typer  # noqa: F401
+except ImportError:
+    sys.exit(77)  # this typer itself needs click: nothing to test
+from seqsolve.cli import main
+sys.argv = ["seqsolve", *sys.argv[1:]]
+main()
+"""
+
+
+@pytest.mark.parametrize(
+    "args, code, says",
+    [
+        (["check", str(EXAMPLE)], 0, "rules"),
+        (["check", str(EXAMPLE), "--no-such-option"], 2, "No such option"),
+        (["check", str(ROOT / "examples" / "no_such_spec.toml")], 2, "no_such_spec.toml"),
+    ],
+    ids=["valid", "usage-error", "missing-spec"],
+)
+def test_the_command_line_needs_no_click(args, code, says):
+    # a fresh `pip install -e .` once failed here with ModuleNotFoundError: click (typer 0.29 dropped it)
+    done = subprocess.run([sys.executable, "-c", _WITHOUT_CLICK, *args], capture_output=True, text=True, cwd=ROOT)
+    if done.returncode == 77:
+        pytest.skip("the installed typer depends on click")
+    out = done.stdout + done.stderr
+    assert done.returncode == code, out
+    assert says in out and "Traceback" not in out

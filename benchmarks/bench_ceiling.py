@@ -20,7 +20,6 @@ Run: python benchmarks/bench_ceiling.py [--quick] [--scenarios estimation,tight-
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import time
 from pathlib import Path
@@ -30,7 +29,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from bench_search import SCENARIOS, prepare, run_method  # noqa: E402
+from bench_search import SCENARIOS, fmt, load_line, prepare, run_method  # noqa: E402
 
 from seqsolve.baselines import genetic  # noqa: E402
 from seqsolve.score import _estimation_bound  # noqa: E402
@@ -65,10 +64,6 @@ def share_of_bound(study, scorer, runs: list[np.ndarray], seed: int) -> float | 
     return scorer.figures(runs).estimation / bound if bound else None
 
 
-def fmt(v: float | None) -> str:
-    return "none" if v is None else f"{v:.4f}"
-
-
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="a smoke run: budgets 1 and 3 s, one seed, long runs of 6 s")
@@ -80,8 +75,7 @@ def main() -> int:
     budgets = sorted(float(b) for b in args.budgets.split(","))
     if args.quick:
         budgets, args.long, args.seeds = [1.0, 3.0], 6.0, 1
-    load = os.getloadavg()
-    print(f"machine load (1, 5, 15 min): {load[0]:.2f} {load[1]:.2f} {load[2]:.2f} on {os.cpu_count()} cores")
+    print(load_line())
     print(f"long runs: {args.seeds} seed(s) x {args.long:g} s per method; the GA also at {budgets} s")
     for name in args.scenarios.split(","):
         study, scorer, seed = prepare(name)
@@ -108,7 +102,7 @@ def main() -> int:
             if share is not None:
                 print(f"  estimation part of that design: {share:.1%} of the identity-contrast FIR bound")
         sys.stdout.flush()
-    print(f"\nmachine load at the end: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
+    print("\n" + load_line("machine load at the end:"))
     return 0
 
 

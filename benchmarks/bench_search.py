@@ -165,6 +165,11 @@ def run_method(method: str, study, scorer: CountingScorer, seed: int, budget: fl
     return Outcome(score, trace.evaluations, time.perf_counter() - t0)
 
 
+def load_line(when: str = "machine load (1, 5, 15 min):") -> str:
+    """The machine's load averages, to print beside figures measured on a shared machine."""
+    return f"{when} {' '.join(f'{x:.2f}' for x in os.getloadavg())} on {os.cpu_count()} cores"
+
+
 def fmt(v: float | None) -> str:
     return "none valid" if v is None else f"{v:.4f}"
 
@@ -225,8 +230,7 @@ def main() -> int:
     if args.long is not None:
         factor = args.long
     long = factor * budgets[-1] if factor > 0 else None
-    load = os.getloadavg()
-    print(f"machine load (1, 5, 15 min): {load[0]:.2f} {load[1]:.2f} {load[2]:.2f} on {os.cpu_count()} cores")
+    print(load_line())
     print(f"budgets {budgets} s per participant; long run {long} s; methods run one at a time")
     for name in args.scenarios.split(","):
         study, scorer, seed = prepare(name)
@@ -238,7 +242,7 @@ def main() -> int:
         print(f"\nscenario {name} ({time.perf_counter() - t0:.0f} s)")
         report(name, budgets, long, out)
         sys.stdout.flush()
-    print(f"\nmachine load at the end: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
+    print("\n" + load_line("machine load at the end:"))
     return 0
 
 

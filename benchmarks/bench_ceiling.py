@@ -31,37 +31,31 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from bench_search import SCENARIOS, fmt, load_line, prepare, run_method  # noqa: E402
 
-from seqsolve.baselines import genetic  # noqa: E402
-from seqsolve.score import _estimation_bound  # noqa: E402
+from seqsolve.baselines import Trace, genetic  # noqa: E402
+from seqsolve.score import score_design  # noqa: E402
 from seqsolve.search import Judge, Search, SearchOptions  # noqa: E402
 from seqsolve.timing import make_schedules  # noqa: E402
 
 TARGET = 1.03
 
 
-def best_by(curve: list[tuple[float, float]], seconds: float) -> float | None:
-    """Best score of a (seconds, best score) record within the first `seconds`."""
-    found = [s for t, s in curve if t <= seconds]
-    return max(found) if found else None
-
-
-def long_runs(study, scorer, seed: int, seeds: int, long: float) -> list[tuple[str, list, list[np.ndarray] | None]]:
-    """(label, (seconds, best score) record, best design) of every long run."""
+def long_runs(study, scorer, seed: int, seeds: int, long: float) -> list[tuple[str, Trace]]:
+    """(label, best design and its record of improvements) of every long run."""
     out = []
     for k in range(seeds):
         options = SearchOptions(iterations=10**9, stall=10**9, budget=long)
         res = Search(study, scorer, "ceiling", seed + k, [], options).run()
-        out.append((f"seqsolve, seed +{k}", [(t, s) for _, t, s in res.history], res.runs))
-        trace = genetic(study, scorer, Judge(study, []), seed + k, budget=long)
-        out.append((f"genetic algorithm, seed +{k}", trace.curve, trace.runs))
+        curve = [(t, s) for _, t, s in res.history]
+        out.append((f"seqsolve, seed +{k}", Trace("seqsolve", res.runs, res.figures.score, curve=curve)))
+        out.append((f"genetic algorithm, seed +{k}", genetic(study, scorer, Judge(study, []), seed + k, budget=long)))
     return out
 
 
 def share_of_bound(study, scorer, runs: list[np.ndarray], seed: int) -> float | None:
-    """Estimation efficiency of a design as a share of the identity-contrast FIR bound (None: no bound)."""
-    schedules = make_schedules(study, runs, seed, scorer.gaps)
-    bound = _estimation_bound(study, scorer.setup, list(range(len(runs))), sum(s.n_volumes for s in schedules))
-    return scorer.figures(runs).estimation / bound if bound else None
+    """Estimation efficiency of a design as a share of the identity-contrast FIR bound (None: no bound),
+    as `seqsolve score` reports it for all runs together."""
+    rows = score_design(study, "best", runs, make_schedules(study, runs, seed, scorer.gaps), False, False)
+    return rows[-1].estimation_vs_bound  # the last row is all runs together (the only one for one run)
 
 
 def main() -> int:
@@ -85,10 +79,10 @@ def main() -> int:
         print(f"\nscenario {name} ({time.perf_counter() - t0:.0f} s)")
         marks = sorted({*budgets, args.long / 10, args.long})
         print("  " + "long run".ljust(30) + "".join(f"{m:>9g} s" for m in marks))
-        for label, curve, _ in runs:
-            print("  " + label.ljust(30) + "".join(f"{fmt(best_by(curve, m)):>11}" for m in marks))
-        label, curve, design = max(runs, key=lambda r: best_by(r[1], args.long) or -np.inf)
-        best = best_by(curve, args.long)
+        for label, trace in runs:
+            print("  " + label.ljust(30) + "".join(f"{fmt(trace.at(m)):>11}" for m in marks))
+        label, top = max(runs, key=lambda r: r[1].score)
+        best, design = (top.score, top.runs) if top.runs is not None else (None, None)
         print(f"  best of every long run: {fmt(best)} ({label})")
         for b in budgets:
             need = None if ga[b] is None else TARGET * ga[b]
